@@ -1,0 +1,96 @@
+//! Branch-free, vectorisable `exp`, `sigmoid` and `tanh` for f32 slices.
+//!
+//! candle's `tanh` goes through the system math library (~15 ns per element); these
+//! loops compile to SIMD code. `exp` uses Cody-Waite range reduction with a degree-6
+//! polynomial (relative error about 2e-7 on [-87, 88]); `tanh` switches to its Taylor
+//! series below |x| < 0.1 so small arguments keep full relative precision.
+
+const LOG2E: f32 = std::f32::consts::LOG2_E;
+const LN2_HI: f32 = 0.693_145_75;
+const LN2_LO: f32 = 1.428_606_8e-6;
+
+/// e^x, clamped to the normal f32 range.
+#[inline(always)]
+pub fn exp(x: f32) -> f32 {
+    let x = x.clamp(-87.0, 88.0);
+    // round to nearest via the 1.5 * 2^23 trick (vectorises, unlike f32::round)
+    let n = (x * LOG2E + 12_582_912.0) - 12_582_912.0;
+    let r = x - n * LN2_HI - n * LN2_LO;
+    let p = 1.0
+        + r * (1.0
+            + r * (0.5
+                + r * (1.0 / 6.0 + r * (1.0 / 24.0 + r * (1.0 / 120.0 + r * (1.0 / 720.0))))));
+    let bits = ((n as i32 + 127) as u32) << 23;
+    f32::from_bits(bits) * p
+}
+
+/// 1 / (1 + e^-x).
+#[inline(always)]
+pub fn sigmoid(x: f32) -> f32 {
+    1.0 / (1.0 + exp(-x))
+}
+
+/// tanh(x).
+#[inline(always)]
+pub fn tanh(x: f32) -> f32 {
+    let e = exp(-2.0 * x.abs());
+    let big = (1.0 - e) / (1.0 + e);
+    let x2 = x * x;
+    let small = x.abs() * (1.0 + x2 * (-1.0 / 3.0 + x2 * (2.0 / 15.0 + x2 * (-17.0 / 315.0))));
+    let a = if x.abs() < 0.1 { small } else { big };
+    a.copysign(x)
+}
+
+/// Applies [`sigmoid`] in place.
+#[inline]
+pub fn sigmoid_slice(xs: &mut [f32]) {
+    for x in xs.iter_mut() {
+        *x = sigmoid(*x);
+    }
+}
+
+/// Applies [`tanh`] in place.
+#[inline]
+pub fn tanh_slice(xs: &mut [f32]) {
+    for x in xs.iter_mut() {
+        *x = tanh(*x);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // Reference: the standard library's exp/tanh (correctly rounded to within 1 ulp).
+    #[test]
+    fn exp_matches_std_within_relative_3e_7() {
+        let mut worst = 0f64;
+        let mut x = -87.0f32;
+        while x < 88.0 {
+            let got = exp(x) as f64;
+            let want = (x as f64).exp();
+            worst = worst.max(((got - want) / want).abs());
+            x += 0.0137;
+        }
+        assert!(worst < 3e-7, "worst relative error {worst}");
+    }
+
+    #[test]
+    fn tanh_and_sigmoid_match_std() {
+        let mut worst_t = 0f64;
+        let mut worst_s = 0f64;
+        let mut x = -20.0f32;
+        while x < 20.0 {
+            let t = (x as f64).tanh();
+            worst_t = worst_t.max(((tanh(x) as f64 - t) / t.abs().max(1e-30)).abs());
+            let s = 1.0 / (1.0 + (-(x as f64)).exp());
+            worst_s = worst_s.max(((sigmoid(x) as f64 - s) / s).abs());
+            x += 0.00731;
+        }
+        assert!(worst_t < 1e-6, "tanh worst relative error {worst_t}");
+        assert!(worst_s < 1e-6, "sigmoid worst relative error {worst_s}");
+        assert_eq!(tanh(0.0), 0.0);
+        assert_eq!(tanh(100.0), 1.0);
+        assert_eq!(tanh(-100.0), -1.0);
+    }
+}
