@@ -110,6 +110,22 @@ pub fn to_json(v: &Value) -> serde_json::Value {
     }
 }
 
+/// The name a command's task goes by: the file name of its script (the first
+/// argument that looks like a path), else of the program.
+/// `python3 -u tasks/beacon.py fast` -> `beacon.py`; `./sim --fast` -> `sim`.
+pub fn task_name(command: &[String]) -> String {
+    let script = command
+        .iter()
+        .skip(1)
+        .find(|a| !a.starts_with('-') && (a.contains('.') || a.contains('/')))
+        .or(command.first());
+    let path = script.map(String::as_str).unwrap_or("process");
+    std::path::Path::new(path)
+        .file_name()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| path.to_string())
+}
+
 fn shorten(line: &str) -> String {
     const MAX: usize = 200;
     let line = line.trim_end();
@@ -146,10 +162,7 @@ impl ProcessTask {
         settings: serde_json::Value,
         timeout: Duration,
     ) -> Result<Self, TaskError> {
-        let name = std::path::Path::new(command.last().map(String::as_str).unwrap_or(""))
-            .file_name()
-            .map(|s| s.to_string_lossy().into_owned())
-            .unwrap_or_else(|| command[0].clone());
+        let name = task_name(command);
         let mut child = Command::new(&command[0])
             .args(&command[1..])
             .stdin(Stdio::piped())
