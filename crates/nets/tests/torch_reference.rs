@@ -8,19 +8,34 @@ use candle_core::{Device, Tensor, Var};
 use mnemon_nets::lstm::lstm_sequence;
 
 fn fixture() -> serde_json::Value {
-    let path = concat!(env!("CARGO_MANIFEST_DIR"), "/../../tests/reference/lstm_fixture.json");
-    serde_json::from_str(&std::fs::read_to_string(path).expect("fixture present")).expect("fixture is JSON")
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/../../tests/reference/lstm_fixture.json"
+    );
+    serde_json::from_str(&std::fs::read_to_string(path).expect("fixture present"))
+        .expect("fixture is JSON")
 }
 
 fn floats(f: &serde_json::Value, key: &str) -> Vec<f32> {
-    f[key].as_array().unwrap_or_else(|| panic!("fixture key {key}")).iter().map(|v| v.as_f64().unwrap() as f32).collect()
+    f[key]
+        .as_array()
+        .unwrap_or_else(|| panic!("fixture key {key}"))
+        .iter()
+        .map(|v| v.as_f64().unwrap() as f32)
+        .collect()
 }
 
 fn assert_close(got: &[f32], want: &[f32], what: &str) {
     assert_eq!(got.len(), want.len(), "{what}: length");
     let scale = want.iter().fold(1e-6f32, |m, x| m.max(x.abs()));
-    let err = got.iter().zip(want).fold(0f32, |m, (a, b)| m.max((a - b).abs()));
-    assert!(err <= 1e-5 * scale, "{what}: max error {err} relative to scale {scale}");
+    let err = got
+        .iter()
+        .zip(want)
+        .fold(0f32, |m, (a, b)| m.max((a - b).abs()));
+    assert!(
+        err <= 1e-5 * scale,
+        "{what}: max error {err} relative to scale {scale}"
+    );
 }
 
 fn to_vec(t: &Tensor) -> Vec<f32> {
@@ -35,22 +50,37 @@ fn fused_lstm_matches_pytorch_nn_lstm() {
     let dev = Device::Cpu;
     let w_ih = Var::from_vec(floats(&f, "weight_ih"), (4 * h, i), &dev).unwrap();
     let w_hh = Var::from_vec(floats(&f, "weight_hh"), (4 * h, h), &dev).unwrap();
-    let bias: Vec<f32> = floats(&f, "bias_ih").iter().zip(floats(&f, "bias_hh")).map(|(a, b)| a + b).collect();
+    let bias: Vec<f32> = floats(&f, "bias_ih")
+        .iter()
+        .zip(floats(&f, "bias_hh"))
+        .map(|(a, b)| a + b)
+        .collect();
     let bias = Var::from_vec(bias, 4 * h, &dev).unwrap();
     let x = Var::from_vec(floats(&f, "x"), (t * b, i), &dev).unwrap(); // time-major rows
     let h0 = Var::from_vec(floats(&f, "h0"), (1, b, h), &dev).unwrap();
     let c0 = Var::from_vec(floats(&f, "c0"), (1, b, h), &dev).unwrap();
     let state0 = Tensor::cat(&[h0.as_tensor(), c0.as_tensor()], 0).unwrap();
-    let xg = x.as_tensor().matmul(&w_ih.as_tensor().t().unwrap()).unwrap().broadcast_add(bias.as_tensor()).unwrap();
+    let xg = x
+        .as_tensor()
+        .matmul(&w_ih.as_tensor().t().unwrap())
+        .unwrap()
+        .broadcast_add(bias.as_tensor())
+        .unwrap();
     let out = lstm_sequence(&xg, w_hh.as_tensor(), &state0, t).unwrap(); // [2, T, B, H]
     let hs = out.get(0).unwrap();
     let c_last = out.get(1).unwrap().get(t - 1).unwrap();
     assert_close(&to_vec(&hs), &floats(&f, "out"), "outputs h_t");
-    assert_close(&to_vec(&hs.get(t - 1).unwrap()), &floats(&f, "h_last"), "final h");
+    assert_close(
+        &to_vec(&hs.get(t - 1).unwrap()),
+        &floats(&f, "h_last"),
+        "final h",
+    );
     assert_close(&to_vec(&c_last), &floats(&f, "c_last"), "final c");
     let w_out = Tensor::from_vec(floats(&f, "w_out"), (t, b, h), &dev).unwrap();
     let w_c = Tensor::from_vec(floats(&f, "w_c"), (b, h), &dev).unwrap();
-    let loss = ((hs * w_out).unwrap().sum_all().unwrap() + (c_last * w_c).unwrap().sum_all().unwrap()).unwrap();
+    let loss = ((hs * w_out).unwrap().sum_all().unwrap()
+        + (c_last * w_c).unwrap().sum_all().unwrap())
+    .unwrap();
     let want_loss = f["loss"].as_f64().unwrap() as f32;
     assert!((loss.to_scalar::<f32>().unwrap() - want_loss).abs() < 1e-5 * want_loss.abs().max(1.0));
     let g = loss.backward().unwrap();
@@ -62,6 +92,10 @@ fn fused_lstm_matches_pytorch_nn_lstm() {
         (&h0, "grad_h0"),
         (&c0, "grad_c0"),
     ] {
-        assert_close(&to_vec(g.get(var.as_tensor()).unwrap()), &floats(&f, key), key);
+        assert_close(
+            &to_vec(g.get(var.as_tensor()).unwrap()),
+            &floats(&f, key),
+            key,
+        );
     }
 }

@@ -1,0 +1,120 @@
+//! `mnemon bench learner|actor`: times exactly the work of the PyTorch reference
+//! (`shared/peers/torch_peer.py`, defined in `mnemon_nets::bench`) and prints the same
+//! JSON fields (`median_ms` / `median_us`), so the two can be run side by side
+//! (`scripts/bench-vs-torch.sh`) and reported as a ratio.
+
+use anyhow::Context;
+use clap::{Args, Subcommand};
+
+use crate::Failure;
+
+/// Arguments of `mnemon bench`.
+#[derive(Args)]
+pub struct BenchArgs {
+    #[command(subcommand)]
+    work: BenchWork,
+}
+
+#[derive(Subcommand)]
+enum BenchWork {
+    /// Time one learner step (unroll with burn-in, loss, backward, Adam).
+    Learner(LearnerArgs),
+    /// Time one actor step over a batch of lanes.
+    Actor(ActorArgs),
+}
+
+/// Options of `mnemon bench learner`.
+#[derive(Args)]
+struct LearnerArgs {
+    /// Sequences per batch.
+    #[arg(long, default_value_t = 32)]
+    batch: usize,
+    /// LSTM width.
+    #[arg(long, default_value_t = 128)]
+    hidden: usize,
+    /// Also run the target network's no-grad forward over all steps.
+    #[arg(long)]
+    target: bool,
+    /// Threads for the fused LSTM and the matmuls.
+    #[arg(long, default_value_t = 1)]
+    threads: usize,
+    /// Timed iterations (after 5 untimed).
+    #[arg(long, default_value_t = 25)]
+    iters: usize,
+}
+
+/// Options of `mnemon bench actor`.
+#[derive(Args)]
+struct ActorArgs {
+    /// Lanes stepped together.
+    #[arg(long, default_value_t = 1)]
+    batch: usize,
+    /// LSTM width.
+    #[arg(long, default_value_t = 128)]
+    hidden: usize,
+    /// Threads (the actor path is single-threaded; the value is recorded in the output).
+    #[arg(long, default_value_t = 1)]
+    threads: usize,
+    /// Timed iterations (after 200 untimed).
+    #[arg(long, default_value_t = 2000)]
+    iters: usize,
+}
+
+/// Sets every pool that may run tensor work to `n` threads. Runs before the first tensor
+/// op: the pools read these once.
+fn set_threads(n: usize) {
+    let n = n.max(1);
+    for var in ["RAYON_NUM_THREADS", "CANDLE_NUM_THREADS"] {
+        // SAFETY: runs on the main thread before any other thread has been started.
+        unsafe { std::env::set_var(var, n.to_string()) };
+    }
+    mnemon_nets::threads::set_threads(n);
+}
+
+fn positive(what: &str, v: usize) -> Result<(), Failure> {
+    if v == 0 {
+        return Err(Failure::BadInput(format!(
+            "mnemon bench: --{what} must be at least 1"
+        )));
+    }
+    Ok(())
+}
+
+/// Runs `mnemon bench`.
+pub fn run_bench(args: BenchArgs) -> Result<(), Failure> {
+    let out = match args.work {
+        BenchWork::Learner(a) => {
+            for (w, v) in [
+                ("batch", a.batch),
+                ("hidden", a.hidden),
+                ("threads", a.threads),
+                ("iters", a.iters),
+            ] {
+                positive(w, v)?;
+            }
+            set_threads(a.threads);
+            let t = mnemon_nets::bench::learner(a.batch, a.hidden, a.target, a.iters)
+                .context("learner benchmark")?;
+            serde_json::json!({
+                "work": "learner", "impl": "mnemon-fused-lstm", "batch": a.batch, "hidden": a.hidden,
+                "target": a.target, "threads": a.threads, "iters": a.iters,
+                "median_ms": t.median(), "min_ms": t.min(), "max_ms": t.max(),
+            })
+        }
+        BenchWork::Actor(a) => {
+            for (w, v) in [("batch", a.batch), ("hidden", a.hidden), ("iters", a.iters)] {
+                positive(w, v)?;
+            }
+            set_threads(1);
+            let t =
+                mnemon_nets::bench::actor(a.batch, a.hidden, a.iters).context("actor benchmark")?;
+            serde_json::json!({
+                "work": "actor", "impl": "mnemon-actor-net", "batch": a.batch, "hidden": a.hidden,
+                "threads": a.threads, "iters": a.iters,
+                "median_us": t.median(), "min_us": t.min(), "max_us": t.max(), "check": t.check,
+            })
+        }
+    };
+    println!("{out}");
+    Ok(())
+}
