@@ -181,6 +181,13 @@ pub(crate) fn nearest<'a>(
     } else {
         2 + w.chars().count() / 8
     };
+    let candidates: Vec<&'a str> = candidates.into_iter().collect();
+    // A clipped word (`burn` for `burn_in`) is as likely as a misspelling.
+    if w.chars().count() >= 3 {
+        if let Some(c) = candidates.iter().find(|c| c.to_lowercase().starts_with(&w)) {
+            return Some(c);
+        }
+    }
     candidates
         .into_iter()
         .map(|c| (distance(&w, &c.to_lowercase()), c))

@@ -310,6 +310,11 @@ impl Checker<'_> {
                     let help = nearest(f, names.iter().copied())
                         .map(|c| format!("did you mean \"{c}\"?"))
                         .or_else(|| {
+                            // A top-level key written after the [task] header.
+                            (path == "task" && registry::children("").contains(&f.as_str()))
+                                .then(|| format!("`{f}` is a top-level key: put it before [task]"))
+                        })
+                        .or_else(|| {
                             // A setting of another kind of the same part.
                             kinds
                                 .iter()
@@ -847,29 +852,26 @@ impl Checker<'_> {
         }
     }
 
-    fn is_default(&self, p: &str) -> bool {
-        match self.vals.get(p) {
-            Some(g) => matches!(self.cx.kind(&g.at), SrcKind::Default),
-            None => true,
-        }
-    }
-
     /// The location to blame for a broken rule among `paths`: the first value the
     /// user wrote, else the first path's.
     fn blame(&self, paths: &[&str]) -> (Loc, String) {
+        // The most recent layer wins: --set, then the spec file, then presets.
+        let rank = |p: &str| match self.vals.get(p).map(|g| self.cx.kind(&g.at)) {
+            Some(SrcKind::Set(_)) => 3,
+            Some(SrcKind::Main(_)) => 2,
+            Some(SrcKind::Preset(_)) => 1,
+            _ => 0,
+        };
+        let mut best: Option<&str> = None;
         for p in paths {
-            if !self.is_default(p) {
-                if let Some(g) = self.vals.get(*p) {
-                    return (g.at.clone(), p.to_string());
-                }
+            if self.vals.contains_key(*p) && best.is_none_or(|b| rank(p) > rank(b)) {
+                best = Some(p);
             }
         }
-        for p in paths {
-            if let Some(g) = self.vals.get(*p) {
-                return (g.at.clone(), p.to_string());
-            }
+        match best.and_then(|p| self.vals.get(p).map(|g| (g.at.clone(), p.to_string()))) {
+            Some(x) => x,
+            None => (Loc { src: 0, span: 0..0 }, paths[0].to_string()),
         }
-        (Loc { src: 0, span: 0..0 }, paths[0].to_string())
     }
 
     fn rule(&mut self, paths: &[&str], msg: String, expected: Option<String>) {

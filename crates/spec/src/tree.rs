@@ -144,8 +144,11 @@ impl Ctx {
 
     /// The errors so far, with the sources needed to render them.
     pub fn errors(&self) -> Errors {
+        // In reading order: files first (as loaded), then --set arguments.
+        let mut diagnostics = self.diags.clone();
+        diagnostics.sort_by_key(|d| (d.source.unwrap_or(0), d.span.start));
         Errors {
-            diagnostics: self.diags.clone(),
+            diagnostics,
             sources: self.sources.iter().map(|(s, _)| s.clone()).collect(),
         }
     }

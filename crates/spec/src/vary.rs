@@ -155,7 +155,9 @@ fn variant(
             .split('.')
             .map(|p| (p.trim().to_string(), axis.key_at.clone()))
             .collect();
-        insert_path(cx, &mut t, parts, (*node).clone(), &axis.path);
+        let mut value = (*node).clone();
+        value.key_at = axis.key_at.clone();
+        insert_path(cx, &mut t, parts, value, &axis.path);
     }
     if let Some(s) = seed {
         let text = format!("run.seed={s}");
