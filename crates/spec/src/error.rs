@@ -42,8 +42,8 @@ pub(crate) struct SourceText {
     pub text: String,
 }
 
-/// Every problem found while loading a spec; `Display` renders them all.
-#[derive(Debug, Clone)]
+/// Every problem found while loading a spec; `Display` (and `Debug`) render them all.
+#[derive(Clone)]
 pub struct Errors {
     /// The problems, in the order found.
     pub diagnostics: Vec<Diagnostic>,
@@ -104,6 +104,12 @@ impl Errors {
 }
 
 impl fmt::Display for Errors {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&self.render(false))
+    }
+}
+
+impl fmt::Debug for Errors {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         f.write_str(&self.render(false))
     }
