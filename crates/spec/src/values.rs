@@ -296,7 +296,7 @@ pub(crate) fn schedule_text(s: &Schedule) -> String {
 pub(crate) fn budget_text(b: &Budget) -> String {
     match b {
         Budget::Steps(n) => n.to_string(),
-        Budget::Seconds(s) => format!("\"{}s\"", format!("{s}")),
+        Budget::Seconds(s) => format!("\"{s}s\""),
     }
 }
 
