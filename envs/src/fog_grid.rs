@@ -226,7 +226,7 @@ impl FogGrid {
     }
     pub(crate) fn from_spec(spec: &TaskSpec) -> Result<Self, TaskError> {
         let view = int_in(spec, "view", 3, 31)? as usize;
-        if view % 2 == 0 {
+        if view & 1 == 0 {
             return Err(TaskError::Setting {
                 kind: "fog-grid".into(),
                 key: "view".into(),

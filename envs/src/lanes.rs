@@ -155,9 +155,9 @@ impl Lanes {
             )));
         }
         let n = self.obs_len;
-        for lane in 0..self.tasks.len() {
+        for (lane, (task, &action)) in self.tasks.iter_mut().zip(actions).enumerate() {
             let o = &mut self.obs[lane * n..(lane + 1) * n];
-            let out = self.tasks[lane].step(actions[lane], o)?;
+            let out = task.step(action, o)?;
             self.returns[lane] += out.reward as f64;
             self.lengths[lane] += 1;
             let mut episode = None;
@@ -172,8 +172,7 @@ impl Lanes {
                 self.episodes[lane] += 1;
                 self.returns[lane] = 0.0;
                 self.lengths[lane] = 0;
-                let seed = episode_seed(self.seed, lane as u64, self.episodes[lane]);
-                self.tasks[lane].reset(seed, o)?;
+                task.reset(episode_seed(self.seed, lane as u64, self.episodes[lane]), o)?;
             }
             self.steps[lane] = LaneStep {
                 reward: out.reward,

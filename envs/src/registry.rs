@@ -370,7 +370,7 @@ mod tests {
                 continue;
             }
             let t = make(&info.default_spec()).unwrap();
-            assert!(t.obs_space().len() > 0);
+            assert!(!t.obs_space().is_empty());
             assert!(t.action_space().count() >= 2);
         }
     }

@@ -95,7 +95,10 @@ fn beacon_example_runs_and_remembering_the_ping_always_finds_it() {
             let out = task.step(action, &mut obs).unwrap();
             steps += 1;
             if out.ending.is_done() {
-                assert_eq!((out.ending, out.success, steps), (Ending::Terminal, Some(true), 5));
+                assert_eq!(
+                    (out.ending, out.success, steps),
+                    (Ending::Terminal, Some(true), 5)
+                );
                 assert!((out.reward - 0.99).abs() < 1e-6);
                 break;
             }
@@ -126,8 +129,14 @@ fn child_exiting_mid_episode_is_reported_with_status_and_stderr() {
         return;
     }
     let (msg, took) = failure("exit-mid", 5.0);
-    assert!(msg.contains("misbehave.py") && msg.contains("exited") && msg.contains("step"), "{msg}");
-    assert!(msg.contains("exit status: 3") && msg.contains("simulated crash"), "{msg}");
+    assert!(
+        msg.contains("misbehave.py") && msg.contains("exited") && msg.contains("step"),
+        "{msg}"
+    );
+    assert!(
+        msg.contains("exit status: 3") && msg.contains("simulated crash"),
+        "{msg}"
+    );
     assert!(took < Duration::from_secs(3), "{took:?}");
 }
 
@@ -137,8 +146,14 @@ fn garbage_output_is_quoted_with_what_was_expected() {
         return;
     }
     let (msg, took) = failure("garbage", 5.0);
-    assert!(msg.contains("misbehave.py") && msg.contains("answer to reset"), "{msg}");
-    assert!(msg.contains("Loading physics engine") && msg.contains("expected: {\"observation\""), "{msg}");
+    assert!(
+        msg.contains("misbehave.py") && msg.contains("answer to reset"),
+        "{msg}"
+    );
+    assert!(
+        msg.contains("Loading physics engine") && msg.contains("expected: {\"observation\""),
+        "{msg}"
+    );
     assert!(took < Duration::from_secs(3));
 }
 
@@ -148,7 +163,10 @@ fn wrong_observation_size_names_both_sizes() {
         return;
     }
     let (msg, _) = failure("wrong-size", 5.0);
-    assert!(msg.contains("misbehave.py") && msg.contains("2 values, expected 3"), "{msg}");
+    assert!(
+        msg.contains("misbehave.py") && msg.contains("2 values, expected 3"),
+        "{msg}"
+    );
 }
 
 #[test]
@@ -157,7 +175,10 @@ fn a_silent_program_times_out_and_is_killed() {
         return;
     }
     let (msg, took) = failure("silent", 0.5);
-    assert!(msg.contains("misbehave.py") && msg.contains("no answer to step within 0.5 s"), "{msg}");
+    assert!(
+        msg.contains("misbehave.py") && msg.contains("no answer to step within 0.5 s"),
+        "{msg}"
+    );
     assert!(took < Duration::from_secs(3), "{took:?}");
 }
 
@@ -167,7 +188,10 @@ fn wrong_protocol_version_is_refused() {
         return;
     }
     let (msg, _) = failure("version", 5.0);
-    assert!(msg.contains("misbehave.py") && msg.contains("version 2") && msg.contains("version 1"), "{msg}");
+    assert!(
+        msg.contains("misbehave.py") && msg.contains("version 2") && msg.contains("version 1"),
+        "{msg}"
+    );
 }
 
 #[test]
@@ -180,8 +204,14 @@ fn stderr_is_collected_with_the_task_name() {
     std::thread::sleep(Duration::from_millis(100));
     let mut lines = Vec::new();
     task.drain_messages(&mut lines);
-    assert_eq!(lines.first().map(String::as_str), Some("[misbehave.py] warming up the simulator"));
-    assert!(lines.contains(&"[misbehave.py] step 1".to_string()), "{lines:?}");
+    assert_eq!(
+        lines.first().map(String::as_str),
+        Some("[misbehave.py] warming up the simulator")
+    );
+    assert!(
+        lines.contains(&"[misbehave.py] step 1".to_string()),
+        "{lines:?}"
+    );
     let mut again = Vec::new();
     task.drain_messages(&mut again);
     assert!(again.is_empty(), "draining moves the lines out");
@@ -195,7 +225,10 @@ fn missing_program_is_a_spawn_error() {
         Value::List(vec![Value::Str("/no/such/simulator".into())]),
     );
     let msg = make(&s).err().unwrap().to_string();
-    assert!(msg.contains("could not start") && msg.contains("/no/such/simulator"), "{msg}");
+    assert!(
+        msg.contains("could not start") && msg.contains("/no/such/simulator"),
+        "{msg}"
+    );
 }
 
 #[test]

@@ -12,7 +12,10 @@ use proptest::prelude::*;
 /// A random valid spec of one of the built-in kinds.
 fn any_spec() -> impl Strategy<Value = TaskSpec> {
     let tmaze = (1i64..12, prop_oneof![Just(0i64), 1i64..60]).prop_map(|(l, t)| {
-        spec("tmaze", [("length", Value::Int(l)), ("time_limit", Value::Int(t))])
+        spec(
+            "tmaze",
+            [("length", Value::Int(l)), ("time_limit", Value::Int(t))],
+        )
     });
     let cartpole = (1i64..600).prop_map(|t| spec("cartpole", [("time_limit", Value::Int(t))]));
     let positions = (1i64..600, prop_oneof![Just(0.0f64), 0.0f64..0.5]).prop_map(|(t, n)| {
@@ -32,9 +35,16 @@ fn any_spec() -> impl Strategy<Value = TaskSpec> {
         )
     });
     let recall = (2i64..8, 0i64..12).prop_map(|(s, d)| {
-        spec("recall", [("symbols", Value::Int(s)), ("distractors", Value::Int(d))])
+        spec(
+            "recall",
+            [("symbols", Value::Int(s)), ("distractors", Value::Int(d))],
+        )
     });
-    let fog = (prop_oneof![Just("depot"), Just("aisles")], prop_oneof![Just(3i64), Just(5), Just(7)], 1i64..120)
+    let fog = (
+        prop_oneof![Just("depot"), Just("aisles")],
+        prop_oneof![Just(3i64), Just(5), Just(7)],
+        1i64..120,
+    )
         .prop_map(|(m, v, t)| {
             spec(
                 "fog-grid",
@@ -148,7 +158,10 @@ proptest! {
 #[test]
 fn episode_summaries_add_up() {
     // T-maze, always west: every step bumps the start wall (-0.1) until the time limit.
-    let s = spec("tmaze", [("length", Value::Int(3)), ("time_limit", Value::Int(50))]);
+    let s = spec(
+        "tmaze",
+        [("length", Value::Int(3)), ("time_limit", Value::Int(50))],
+    );
     let mut l = Lanes::new(&s, 2, 9).unwrap();
     let (mut total, mut len, mut seen) = (0.0f64, 0u64, 0);
     for t in 0..400 {

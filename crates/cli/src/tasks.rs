@@ -1,0 +1,555 @@
+//! `mnemon tasks`: list the registered tasks; `mnemon tasks try` rolls episodes of
+//! one task with a simple policy (a user's first check of a new task);
+//! `mnemon tasks bench` measures stepping speed for 1 and 8 lanes.
+
+use std::path::Path;
+use std::time::Instant;
+
+use clap::{Args, Subcommand};
+use mnemon_envs::rng::Rng;
+use mnemon_envs::{catalogue, Ending, Lanes, SettingType, TaskError, TaskInfo};
+use mnemon_spec::{TaskSpec, Value};
+
+use crate::Failure;
+
+/// println! that ignores a closed stdout (`mnemon tasks | head`) instead of panicking.
+macro_rules! out {
+    ($($arg:tt)*) => {{
+        use std::io::Write;
+        let _ = writeln!(std::io::stdout(), $($arg)*);
+    }};
+}
+
+/// Arguments of `mnemon tasks`.
+#[derive(Args, Debug)]
+#[command(after_help = "Examples:\n  \
+    mnemon tasks\n  \
+    mnemon tasks try tmaze --set length=4 --episodes 200\n  \
+    mnemon tasks try cartpole --policy fixed:push-right\n  \
+    mnemon tasks try process --set 'command=python3 examples/tasks/beacon.py'\n  \
+    mnemon tasks try specs/tmaze-lstm.toml\n  \
+    mnemon tasks bench cartpole")]
+pub struct TasksArgs {
+    /// What to do; without one, list every task.
+    #[command(subcommand)]
+    pub action: Option<TasksAction>,
+}
+
+/// `mnemon tasks` subcommands.
+#[derive(Subcommand, Debug)]
+pub enum TasksAction {
+    /// Roll episodes of a task and print returns, lengths, success rate and speed.
+    Try(TryArgs),
+    /// Measure steps per second for 1 and 8 lanes.
+    Bench(BenchArgs),
+}
+
+/// How `try` picks actions.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Policy {
+    /// Uniformly random actions.
+    Random,
+    /// Always the same action (by name or index).
+    Fixed(String),
+}
+
+fn parse_policy(s: &str) -> Result<Policy, String> {
+    match s {
+        "random" => Ok(Policy::Random),
+        _ => match s.strip_prefix("fixed:") {
+            Some(a) if !a.is_empty() => Ok(Policy::Fixed(a.to_string())),
+            _ => Err(format!(
+                "unknown policy \"{s}\"; expected random or fixed:ACTION (an action name or index)"
+            )),
+        },
+    }
+}
+
+/// Arguments of `mnemon tasks try`.
+#[derive(Args, Debug)]
+pub struct TryArgs {
+    /// A task kind (see `mnemon tasks`) or a spec file whose `[task]` to use.
+    #[arg(value_name = "SPEC_OR_KIND")]
+    pub target: String,
+    /// Episodes to roll.
+    #[arg(long, default_value_t = 100)]
+    pub episodes: u64,
+    /// random, or fixed:ACTION with an action name or index.
+    #[arg(long, default_value = "random", value_parser = parse_policy)]
+    pub policy: Policy,
+    /// Set a task setting, like `length=4` (repeatable).
+    #[arg(long = "set", value_name = "KEY=VALUE")]
+    pub sets: Vec<String>,
+    /// Seed of the episodes and of the random policy.
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+}
+
+/// Arguments of `mnemon tasks bench`.
+#[derive(Args, Debug)]
+pub struct BenchArgs {
+    /// A task kind or a spec file.
+    #[arg(value_name = "SPEC_OR_KIND")]
+    pub target: String,
+    /// Lane counts to measure.
+    #[arg(long, value_delimiter = ',', default_value = "1,8")]
+    pub lanes: Vec<usize>,
+    /// Environment steps per measurement (all lanes together); default 4M, 20k for
+    /// outside-process tasks.
+    #[arg(long)]
+    pub steps: Option<u64>,
+    /// Set a task setting, like `length=4` (repeatable).
+    #[arg(long = "set", value_name = "KEY=VALUE")]
+    pub sets: Vec<String>,
+}
+
+/// Entry point of `mnemon tasks`.
+pub fn run(args: TasksArgs) -> Result<(), Failure> {
+    match args.action {
+        None => {
+            use std::io::Write;
+            let _ = std::io::stdout().write_all(listing().as_bytes());
+            Ok(())
+        }
+        Some(TasksAction::Try(a)) => run_try(a),
+        Some(TasksAction::Bench(a)) => run_bench(a),
+    }
+}
+
+fn show(v: &Value) -> String {
+    match v {
+        Value::Int(i) => i.to_string(),
+        Value::Float(f) => format!("{f:?}"),
+        Value::Bool(b) => b.to_string(),
+        Value::Str(s) => format!("{s:?}"),
+        Value::List(items) => format!(
+            "[{}]",
+            items.iter().map(show).collect::<Vec<_>>().join(", ")
+        ),
+        Value::Table(t) => format!(
+            "{{{}}}",
+            t.iter()
+                .map(|(k, v)| format!("{k} = {}", show(v)))
+                .collect::<Vec<_>>()
+                .join(", ")
+        ),
+    }
+}
+
+/// The text of `mnemon tasks`.
+pub fn listing() -> String {
+    let mut out = String::new();
+    for info in catalogue() {
+        out.push_str(&format!("{}\n  {}\n", info.kind, info.summary));
+        out.push_str(&format!("  partially observable: {}\n", info.hidden));
+        match mnemon_envs::make(&info.default_spec()) {
+            Ok(task) => {
+                out.push_str(&format!("  observation: {}\n", task.obs_space().describe()));
+                out.push_str(&format!(
+                    "  actions: {}\n",
+                    task.action_space().names.join(", ")
+                ));
+            }
+            Err(_) => {
+                out.push_str("  observation and actions: declared by the program in its hello\n")
+            }
+        }
+        out.push_str(&format!("  episode end: {}\n", info.time_limit));
+        out.push_str(&format!("  source: {}\n", info.source));
+        out.push_str("  settings:\n");
+        for s in &info.settings {
+            let default = s
+                .default
+                .as_ref()
+                .map(show)
+                .unwrap_or_else(|| "(required)".into());
+            out.push_str(&format!(
+                "    {} = {}  ({}) {}\n",
+                s.name,
+                default,
+                s.kind.name(),
+                s.doc
+            ));
+        }
+        out.push('\n');
+    }
+    out
+}
+
+/// Parse one `--set` value according to the setting's type.
+fn parse_setting(info: &TaskInfo, key: &str, text: &str) -> Result<Value, String> {
+    let Some(s) = info.settings.iter().find(|s| s.name == key) else {
+        let names: Vec<&str> = info.settings.iter().map(|s| s.name).collect();
+        return Err(format!(
+            "--set {key}={text}: {} has no setting \"{key}\"; it has: {}",
+            info.kind,
+            names.join(", ")
+        ));
+    };
+    let bad = || format!("--set {key}={text}: expected {}", s.kind.name());
+    Ok(match s.kind {
+        SettingType::Int => Value::Int(text.parse().map_err(|_| bad())?),
+        SettingType::Float => Value::Float(text.parse().map_err(|_| bad())?),
+        SettingType::Bool => Value::Bool(text.parse().map_err(|_| bad())?),
+        SettingType::Str => Value::Str(text.to_string()),
+        SettingType::StrList => {
+            if text.trim_start().starts_with('[') {
+                let items: Vec<String> =
+                    serde_json::from_str(text).map_err(|e| format!("{}: {e}", bad()))?;
+                Value::List(items.into_iter().map(Value::Str).collect())
+            } else {
+                Value::List(
+                    text.split_whitespace()
+                        .map(|w| Value::Str(w.to_string()))
+                        .collect(),
+                )
+            }
+        }
+        SettingType::Table => {
+            let json: serde_json::Value =
+                serde_json::from_str(text).map_err(|e| format!("{} (as JSON): {e}", bad()))?;
+            from_json(&json).ok_or_else(bad)?
+        }
+    })
+}
+
+fn from_json(v: &serde_json::Value) -> Option<Value> {
+    Some(match v {
+        serde_json::Value::Bool(b) => Value::Bool(*b),
+        serde_json::Value::Number(n) => match n.as_i64() {
+            Some(i) => Value::Int(i),
+            None => Value::Float(n.as_f64()?),
+        },
+        serde_json::Value::String(s) => Value::Str(s.clone()),
+        serde_json::Value::Array(a) => Value::List(a.iter().map(from_json).collect::<Option<_>>()?),
+        serde_json::Value::Object(o) => Value::Table(
+            o.iter()
+                .map(|(k, v)| Some((k.clone(), from_json(v)?)))
+                .collect::<Option<_>>()?,
+        ),
+        serde_json::Value::Null => return None,
+    })
+}
+
+/// The task a `SPEC_OR_KIND` argument names, with `--set` values applied.
+pub fn task_spec(target: &str, sets: &[String]) -> Result<TaskSpec, Failure> {
+    let all = catalogue();
+    if let Some(info) = all.iter().find(|i| i.kind == target) {
+        let mut spec = info.default_spec();
+        for set in sets {
+            let Some((key, text)) = set.split_once('=') else {
+                return Err(Failure::BadInput(format!(
+                    "--set {set}: expected KEY=VALUE"
+                )));
+            };
+            let key = key.trim().strip_prefix("task.").unwrap_or(key.trim());
+            let value = parse_setting(info, key, text.trim()).map_err(Failure::BadInput)?;
+            spec.settings.insert(key.to_string(), value);
+        }
+        return mnemon_envs::resolve_settings(&spec)
+            .map_err(|e| Failure::BadInput(format!("mnemon tasks: {e}")));
+    }
+    let path = Path::new(target);
+    if !path.exists() {
+        let kinds: Vec<&str> = all.iter().map(|i| i.kind).collect();
+        return Err(Failure::BadInput(format!(
+            "mnemon tasks: \"{target}\" is neither a task kind ({}) nor a spec file",
+            kinds.join(", ")
+        )));
+    }
+    let sets: Vec<String> = sets
+        .iter()
+        .map(|s| {
+            if s.starts_with("task.") {
+                s.clone()
+            } else {
+                format!("task.{s}")
+            }
+        })
+        .collect();
+    match mnemon_spec::load(path, &sets) {
+        Ok(r) => Ok(r.spec.task),
+        Err(e) => Err(Failure::BadInput(e.render(crate::color()))),
+    }
+}
+
+/// Map a task error to an exit: settings, maps and unknown kinds are bad input (2);
+/// a task failing while it runs is a failed run (1).
+fn task_failure(e: TaskError) -> Failure {
+    match e {
+        TaskError::UnknownKind { .. } | TaskError::Setting { .. } | TaskError::Map { .. } => {
+            Failure::BadInput(format!("mnemon tasks: {e}"))
+        }
+        TaskError::Process {
+            failure: mnemon_envs::ProcessFailure::Spawn { .. },
+            ..
+        } => Failure::BadInput(format!("mnemon tasks: {e}")),
+        other => Failure::Internal(anyhow::anyhow!("{other}")),
+    }
+}
+
+fn describe_spec(spec: &TaskSpec) -> String {
+    let parts: Vec<String> = spec
+        .settings
+        .iter()
+        .map(|(k, v)| format!("{k} = {}", show(v)))
+        .collect();
+    if parts.is_empty() {
+        spec.kind.clone()
+    } else {
+        format!("{} ({})", spec.kind, parts.join(", "))
+    }
+}
+
+fn print_messages(lanes: &mut Lanes, buf: &mut Vec<String>) {
+    lanes.drain_messages(buf);
+    for line in buf.drain(..) {
+        eprintln!("{line}");
+    }
+}
+
+fn run_try(args: TryArgs) -> Result<(), Failure> {
+    if args.episodes == 0 {
+        return Err(Failure::BadInput(
+            "mnemon tasks try: --episodes must be at least 1".into(),
+        ));
+    }
+    let spec = task_spec(&args.target, &args.sets)?;
+    let mut lanes = Lanes::new(&spec, 1, args.seed).map_err(task_failure)?;
+    let names = lanes.task().action_space().names;
+    let fixed = match &args.policy {
+        Policy::Random => None,
+        Policy::Fixed(a) => Some(match names.iter().position(|n| n == a) {
+            Some(i) => i,
+            None => match a.parse::<usize>() {
+                Ok(i) if i < names.len() => i,
+                _ => {
+                    return Err(Failure::BadInput(format!(
+                        "mnemon tasks try: --policy fixed:{a}: no such action; {} has: {} (or an index 0..{})",
+                        spec.kind,
+                        names.join(", "),
+                        names.len()
+                    )))
+                }
+            },
+        }),
+    };
+    let has_success = lanes.task().has_success();
+    out!("task      {}", describe_spec(&spec));
+    out!("observe   {}", lanes.task().obs_space().describe());
+    out!("actions   {}", names.join(", "));
+    let policy = match fixed {
+        Some(i) => format!("always {}", names[i]),
+        None => "uniformly random".into(),
+    };
+    out!(
+        "policy    {policy}, {} episodes, seed {}",
+        args.episodes,
+        args.seed
+    );
+    let mut rng = Rng::new(args.seed ^ 0x5EED_0F_A11CE);
+    let (mut returns, mut lengths) = (Vec::new(), Vec::new());
+    let (mut successes, mut terminal, mut truncated, mut steps) = (0u64, 0u64, 0u64, 0u64);
+    let mut messages = Vec::new();
+    let start = Instant::now();
+    while (returns.len() as u64) < args.episodes {
+        let action = fixed.unwrap_or_else(|| rng.below(names.len()));
+        let result = lanes.step(&[action]).map(|s| s[0]);
+        let step = match result {
+            Ok(s) => s,
+            Err(e) => {
+                print_messages(&mut lanes, &mut messages);
+                return Err(task_failure(e));
+            }
+        };
+        steps += 1;
+        if let Some(ep) = step.episode {
+            returns.push(ep.total_reward);
+            lengths.push(ep.length);
+            successes += (ep.success == Some(true)) as u64;
+            match ep.ending {
+                Ending::Terminal => terminal += 1,
+                _ => truncated += 1,
+            }
+            print_messages(&mut lanes, &mut messages);
+        }
+    }
+    let secs = start.elapsed().as_secs_f64();
+    let n = returns.len() as f64;
+    let stats = |v: &[f64]| {
+        let mean = v.iter().sum::<f64>() / v.len() as f64;
+        let min = v.iter().cloned().fold(f64::INFINITY, f64::min);
+        let max = v.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+        (mean, min, max)
+    };
+    let (rm, rlo, rhi) = stats(&returns);
+    let lf: Vec<f64> = lengths.iter().map(|&l| l as f64).collect();
+    let (lm, llo, lhi) = stats(&lf);
+    out!("return    mean {rm:.4}  min {rlo:.4}  max {rhi:.4}");
+    out!("length    mean {lm:.2}  min {llo}  max {lhi}");
+    if has_success {
+        out!(
+            "success   {:.1}% ({successes} of {})",
+            100.0 * successes as f64 / n,
+            returns.len()
+        );
+    } else {
+        out!("success   not defined for {}", spec.kind);
+    }
+    out!("endings   terminal {terminal}, truncated {truncated}");
+    out!(
+        "speed     {} steps/s ({steps} steps in {:.2} ms, policy included)",
+        rate(steps as f64 / secs),
+        secs * 1e3
+    );
+    Ok(())
+}
+
+fn rate(r: f64) -> String {
+    if r >= 1e6 {
+        format!("{:.2}M", r / 1e6)
+    } else if r >= 1e3 {
+        format!("{:.1}k", r / 1e3)
+    } else {
+        format!("{r:.0}")
+    }
+}
+
+fn run_bench(args: BenchArgs) -> Result<(), Failure> {
+    let spec = task_spec(&args.target, &args.sets)?;
+    let default_steps = if spec.kind == "process" {
+        20_000
+    } else {
+        4_000_000
+    };
+    let total = args.steps.unwrap_or(default_steps).max(1);
+    out!(
+        "task {}: steps per second, all lanes together, actions uniformly random",
+        describe_spec(&spec)
+    );
+    for &count in &args.lanes {
+        if count == 0 {
+            return Err(Failure::BadInput(
+                "mnemon tasks bench: --lanes values must be at least 1".into(),
+            ));
+        }
+        let mut lanes = Lanes::new(&spec, count, 7).map_err(task_failure)?;
+        let n = lanes.task().action_space().count();
+        // Actions drawn up front so the measurement is the task's stepping alone.
+        let mut rng = Rng::new(3);
+        let pool: Vec<usize> = (0..4096 * count).map(|_| rng.below(n)).collect();
+        let rounds = total.div_ceil(count as u64);
+        let start = Instant::now();
+        let mut episodes = 0u64;
+        for r in 0..rounds {
+            let at = (r as usize % 4096) * count;
+            let steps = lanes.step(&pool[at..at + count]).map_err(task_failure)?;
+            episodes += steps.iter().filter(|s| s.episode.is_some()).count() as u64;
+        }
+        let secs = start.elapsed().as_secs_f64();
+        let done = rounds * count as u64;
+        out!(
+            "  {count:>3} lane{}  {:>9} steps/s  ({done} steps, {episodes} episodes, {secs:.3} s)",
+            if count == 1 { " " } else { "s" },
+            rate(done as f64 / secs)
+        );
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn listing_names_every_task_with_spaces_and_settings() {
+        let text = listing();
+        for kind in [
+            "tmaze",
+            "cartpole",
+            "cartpole-positions",
+            "tiger",
+            "recall",
+            "fog-grid",
+            "process",
+        ] {
+            assert!(text.lines().any(|l| l == kind), "{kind} missing:\n{text}");
+        }
+        assert!(text.contains("image 5x5x5"));
+        assert!(text.contains("length = 10"));
+        assert!(text.contains("command = (required)"));
+    }
+
+    #[test]
+    fn sets_are_typed_by_the_schema() {
+        let s = task_spec("tmaze", &["length=4".into()]).ok().unwrap();
+        assert_eq!(s.int("length"), Some(4));
+        let s = task_spec("process", &["command=python3 x.py".into()])
+            .ok()
+            .unwrap();
+        assert_eq!(s.strings("command").unwrap(), ["python3", "x.py"]);
+        for bad in ["lenght=4", "length=four", "length"] {
+            match task_spec("tmaze", &[bad.into()]) {
+                Err(Failure::BadInput(msg)) => {
+                    assert!(msg.contains("length") || msg.contains("KEY=VALUE"), "{msg}")
+                }
+                _ => panic!("{bad} accepted"),
+            }
+        }
+        assert!(matches!(
+            task_spec("no-such-task", &[]),
+            Err(Failure::BadInput(_))
+        ));
+    }
+
+    #[test]
+    fn try_runs_every_builtin_task() {
+        for kind in [
+            "tmaze",
+            "cartpole",
+            "cartpole-positions",
+            "tiger",
+            "recall",
+            "fog-grid",
+        ] {
+            let args = TryArgs {
+                target: kind.into(),
+                episodes: 5,
+                policy: Policy::Random,
+                sets: vec![],
+                seed: 1,
+            };
+            assert!(run_try(args).is_ok(), "{kind}");
+        }
+        let bad = TryArgs {
+            target: "tmaze".into(),
+            episodes: 5,
+            policy: Policy::Fixed("jump".into()),
+            sets: vec![],
+            seed: 1,
+        };
+        assert!(matches!(run_try(bad), Err(Failure::BadInput(_))));
+        assert_eq!(parse_policy("fixed:east"), Ok(Policy::Fixed("east".into())));
+        assert!(parse_policy("greedy").is_err());
+    }
+
+    #[test]
+    fn try_runs_the_python_example() {
+        let python = std::process::Command::new("python3")
+            .arg("--version")
+            .output();
+        if !python.map(|o| o.status.success()).unwrap_or(false) {
+            eprintln!("note: python3 not found; the outside-task example was not tried");
+            return;
+        }
+        let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../examples/tasks/beacon.py");
+        let args = TryArgs {
+            target: "process".into(),
+            episodes: 10,
+            policy: Policy::Fixed("fly-east".into()),
+            sets: vec![format!("command=python3 {}", script.display())],
+            seed: 1,
+        };
+        assert!(run_try(args).is_ok());
+    }
+}
