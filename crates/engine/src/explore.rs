@@ -44,7 +44,9 @@ mod tests {
     // ../shared/REFERENCE.md for base 0.4, spread 7, N = 8.
     #[test]
     fn ladder_matches_worked_values() {
-        let want = [0.4, 0.16, 0.064, 0.0256, 0.01024, 0.004096, 0.0016384, 0.00065536];
+        let want = [
+            0.4, 0.16, 0.064, 0.0256, 0.01024, 0.004096, 0.0016384, 0.00065536,
+        ];
         for (i, w) in want.iter().enumerate() {
             assert!((ladder(0.4, 7.0, i, 8) - w).abs() < 1e-12, "rung {i}");
         }

@@ -3,6 +3,14 @@
 //! networks (`mnemon-nets`); it prints nothing (the binary renders progress and errors).
 #![deny(missing_docs)]
 
+pub mod error;
 pub mod explore;
 pub mod replay;
+pub mod rundir;
 pub mod sequence;
+
+pub use error::{Error, Result};
+pub mod actor;
+pub mod eval;
+pub mod learner;
+pub mod train;

@@ -2,9 +2,13 @@
 //! sampling through a sum tree.
 //!
 //! Prioritized replay follows Schaul et al. 2016: P(i) = p_i^a / sum_k p_k^a, importance
-//! weights w_i = (N P(i))^-b normalised by the largest weight in the store (kept by a
-//! min tree over the same leaves). Sequences enter at the largest priority seen so far, so
-//! every new sequence is sampled soon. The per-sequence priority mixture
+//! weights w_i = (N P(i))^-b normalised by the largest weight in the sampled batch.
+//! (Normalising by the largest weight in the whole store lets one stale sequence with a
+//! near-zero priority shrink every weight, and with it the step size, by orders of
+//! magnitude; measured on the T-maze, it stalled learning.) Sequences enter at the largest priority now in the store,
+//! so every new sequence is sampled soon without crowding out the rest. (Entering at the
+//! largest priority ever seen, which early in a run is far above every current one,
+//! made batches almost all new sequences and stalled the T-maze at L = 10.) The per-sequence priority mixture
 //! p = eta*max|d| + (1-eta)*mean|d| is Kapturowski et al. 2019 (see `sequence_priority`).
 //!
 //! The store is a ring: the oldest sequence leaves first. Capacity is given in
@@ -15,22 +19,22 @@ use rand::Rng;
 
 use crate::sequence::Sequence;
 
-/// A binary tree over `n` leaves keeping sums and minima of the leaf values.
+/// A binary tree over `n` leaves keeping sums and maxima of the leaf values.
 #[derive(Debug, Clone)]
 pub struct SumTree {
     leaves: usize,
     sum: Vec<f64>,
-    min: Vec<f64>,
+    max: Vec<f64>,
 }
 
 impl SumTree {
-    /// A tree over `n` leaves, all zero (min of an empty leaf counts as +inf).
+    /// A tree over `n` leaves, all zero.
     pub fn new(n: usize) -> Self {
         let leaves = n.max(1).next_power_of_two();
         SumTree {
             leaves,
             sum: vec![0.0; 2 * leaves],
-            min: vec![f64::INFINITY; 2 * leaves],
+            max: vec![0.0; 2 * leaves],
         }
     }
 
@@ -38,11 +42,11 @@ impl SumTree {
     pub fn set(&mut self, i: usize, value: Option<f64>) {
         let mut node = i + self.leaves;
         self.sum[node] = value.unwrap_or(0.0);
-        self.min[node] = value.unwrap_or(f64::INFINITY);
+        self.max[node] = value.unwrap_or(0.0);
         while node > 1 {
             node /= 2;
             self.sum[node] = self.sum[2 * node] + self.sum[2 * node + 1];
-            self.min[node] = self.min[2 * node].min(self.min[2 * node + 1]);
+            self.max[node] = self.max[2 * node].max(self.max[2 * node + 1]);
         }
     }
 
@@ -56,9 +60,9 @@ impl SumTree {
         self.sum[1]
     }
 
-    /// Smallest non-empty leaf (+inf when empty).
-    pub fn min(&self) -> f64 {
-        self.min[1]
+    /// Largest leaf (0 when empty).
+    pub fn max(&self) -> f64 {
+        self.max[1]
     }
 
     /// The leaf whose cumulative range holds `mass` (0 <= mass < total).
@@ -93,7 +97,7 @@ pub fn sequence_priority(abs_td: &[f32], eta: f64) -> f64 {
 pub struct Draw {
     /// Slot in the store (pass back to `update_priorities`).
     pub slot: usize,
-    /// Importance weight normalised by the store's largest weight.
+    /// Importance weight normalised by the largest weight of its batch.
     pub weight: f32,
 }
 
@@ -105,7 +109,6 @@ pub struct Replay {
     len: usize,
     exponent: f64,
     correction: f64,
-    max_priority: f64,
     inserted_sequences: u64,
     inserted_transitions: u64,
     stored_transitions: u64,
@@ -126,7 +129,6 @@ impl Replay {
             len: 0,
             exponent,
             correction,
-            max_priority: 1.0,
             inserted_sequences: 0,
             inserted_transitions: 0,
             stored_transitions: 0,
@@ -135,7 +137,9 @@ impl Replay {
 
     /// Slots for a capacity in transitions at the given cutting stride.
     pub fn slots_for(capacity_transitions: u64, stride: usize) -> usize {
-        (capacity_transitions as usize).div_ceil(stride.max(1)).max(1)
+        (capacity_transitions as usize)
+            .div_ceil(stride.max(1))
+            .max(1)
     }
 
     /// Sequences stored.
@@ -173,7 +177,7 @@ impl Replay {
         self.len as f64 / self.slots.len() as f64
     }
 
-    /// Inserts a sequence at the largest priority seen so far, evicting the oldest
+    /// Inserts a sequence at the largest priority in the store, evicting the oldest
     /// when full. Returns the slot used.
     pub fn insert(&mut self, seq: Sequence) -> usize {
         let slot = self.next;
@@ -187,8 +191,12 @@ impl Replay {
         self.stored_transitions += learnable;
         self.inserted_sequences += 1;
         self.slots[slot] = Some(seq);
-        self.tree
-            .set(slot, Some(self.max_priority.powf(self.exponent)));
+        let leaf = if self.tree.max() > 0.0 {
+            self.tree.max()
+        } else {
+            1.0
+        };
+        self.tree.set(slot, Some(leaf));
         self.next = (self.next + 1) % self.slots.len();
         slot
     }
@@ -208,16 +216,19 @@ impl Replay {
         }
     }
 
-    /// Importance weight of `slot`, normalised by the store's largest weight.
-    pub fn weight(&self, slot: usize) -> f32 {
+    /// Importance weights of `slots`, (N P(i))^-b normalised by their largest.
+    pub fn weights(&self, slots: &[usize]) -> Vec<f32> {
         let total = self.tree.total();
         if total <= 0.0 || self.correction == 0.0 {
-            return 1.0;
+            return vec![1.0; slots.len()];
         }
         let n = self.len as f64;
-        let p = self.tree.get(slot) / total;
-        let p_min = self.tree.min() / total;
-        ((n * p).powf(-self.correction) / (n * p_min).powf(-self.correction)) as f32
+        let raw: Vec<f64> = slots
+            .iter()
+            .map(|&s| (n * self.tree.get(s) / total).powf(-self.correction))
+            .collect();
+        let max = raw.iter().cloned().fold(0.0, f64::max);
+        raw.iter().map(|w| (w / max) as f32).collect()
     }
 
     /// Draws `count` sequences, stratified: the priority mass is cut into `count`
@@ -240,21 +251,31 @@ impl Replay {
                         .find(|&s| self.slots[s].is_some())
                         .unwrap_or(0);
                 }
-                Draw {
-                    slot,
-                    weight: self.weight(slot),
-                }
+                Draw { slot, weight: 1.0 }
             })
-            .collect()
+            .collect::<Vec<_>>()
+    }
+
+    /// Draws `count` sequences (see `sample`) with their importance weights.
+    pub fn sample_weighted<R: Rng>(&self, count: usize, rng: &mut R) -> Vec<Draw> {
+        let mut draws = self.sample(count, rng);
+        let slots: Vec<usize> = draws.iter().map(|d| d.slot).collect();
+        for (d, w) in draws.iter_mut().zip(self.weights(&slots)) {
+            d.weight = w;
+        }
+        draws
     }
 
     /// Writes new raw priorities (before the exponent) for sampled slots.
     pub fn update_priorities(&mut self, updates: &[(usize, f64)]) {
         for &(slot, p) in updates {
             if self.slots.get(slot).is_some_and(|s| s.is_some()) {
-                let p = if p.is_finite() { p.max(MIN_PRIORITY) } else { self.max_priority };
-                self.max_priority = self.max_priority.max(p);
-                self.tree.set(slot, Some(p.powf(self.exponent)));
+                let leaf = if p.is_finite() {
+                    p.max(MIN_PRIORITY).powf(self.exponent)
+                } else {
+                    self.tree.max()
+                };
+                self.tree.set(slot, Some(leaf));
             }
         }
     }
@@ -285,9 +306,10 @@ mod tests {
         r.update_priorities(&[(0, 1.87), (1, 0.5), (2, 1.0), (3, 0.1)]);
         let p = [0.5138603752, 0.1567691804, 0.2925416346, 0.0368288098];
         let w = [0.2056863789, 0.4193302545, 0.2884031503, 1.0];
+        let weights = r.weights(&[0, 1, 2, 3]);
         for i in 0..4 {
             assert!((r.probability(i) - p[i]).abs() < 1e-9, "P({i})");
-            assert!((r.weight(i) as f64 - w[i]).abs() < 1e-6, "w({i})");
+            assert!((weights[i] as f64 - w[i]).abs() < 1e-6, "w({i})");
         }
     }
 
@@ -340,9 +362,17 @@ mod tests {
     fn new_sequences_enter_at_the_largest_priority() {
         let mut r = Replay::new(4, 1.0, 0.0);
         r.insert(seq(0.0));
-        r.update_priorities(&[(0, 5.0)]);
-        let slot = r.insert(seq(1.0));
+        r.insert(seq(1.0));
+        r.update_priorities(&[(0, 5.0), (1, 0.5)]);
+        let slot = r.insert(seq(2.0));
         assert_eq!(r.tree.get(slot), 5.0);
+        r.update_priorities(&[(0, 0.25), (2, 0.5)]);
+        let slot = r.insert(seq(3.0));
+        assert_eq!(
+            r.tree.get(slot),
+            0.5,
+            "the largest current priority, not the largest ever"
+        );
     }
 
     #[test]

@@ -129,7 +129,13 @@ pub struct Cutter {
 impl Cutter {
     /// A cutter for sequences of `length` entries overlapping by `overlap`, with
     /// `burn_in` warm-up entries for sequences that start mid-episode.
-    pub fn new(length: usize, overlap: usize, burn_in: usize, obs_len: usize, state_len: usize) -> Self {
+    pub fn new(
+        length: usize,
+        overlap: usize,
+        burn_in: usize,
+        obs_len: usize,
+        state_len: usize,
+    ) -> Self {
         let overlap = overlap.clamp(1, length.saturating_sub(1).max(1));
         Cutter {
             length,
@@ -265,7 +271,16 @@ mod tests {
                 },
             };
             let prev = if t == 0 { NO_ACTION } else { 1 };
-            c.record(&[t as f32], prev, 0.5, &[t as f32 * 10.0], 1, t as f32, end, out);
+            c.record(
+                &[t as f32],
+                prev,
+                0.5,
+                &[t as f32 * 10.0],
+                1,
+                t as f32,
+                end,
+                out,
+            );
         }
     }
 
@@ -295,7 +310,11 @@ mod tests {
         assert_eq!(starts, vec![0.0, 4.0, 8.0, 12.0]);
         assert!(out[3].learnable(7), "terminal last entry is learned");
         for s in &out {
-            assert_eq!(s.start_state[0], s.obs[0] * 10.0, "state stored at the first entry");
+            assert_eq!(
+                s.start_state[0],
+                s.obs[0] * 10.0,
+                "state stored at the first entry"
+            );
         }
         assert_eq!(out[1].burn_in, 3);
         // A full mid-episode sequence: entries 3..=6 learnable (burn-in 0..3, last is bootstrap).
@@ -324,7 +343,10 @@ mod tests {
         assert_eq!(s.len, 4);
         assert_eq!(s.obs[3], 3.0, "final observation appended");
         assert!(!s.has_outcome[3]);
-        assert!(!s.terminal.iter().any(|&t| t), "truncation is not a terminal");
+        assert!(
+            !s.terminal.iter().any(|&t| t),
+            "truncation is not a terminal"
+        );
         assert_eq!(s.learnable_count(), 3);
         assert_eq!(s.prev_action[3], 1);
     }
