@@ -155,6 +155,10 @@ impl Lanes {
             )));
         }
         let n = self.obs_len;
+        // Outside programs get their actions first and work in parallel.
+        for (task, &action) in self.tasks.iter_mut().zip(actions) {
+            task.send_action(action)?;
+        }
         for (lane, (task, &action)) in self.tasks.iter_mut().zip(actions).enumerate() {
             let o = &mut self.obs[lane * n..(lane + 1) * n];
             let out = task.step(action, o)?;

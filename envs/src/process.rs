@@ -59,6 +59,8 @@ pub struct ProcessTask {
     success: bool,
     running: bool,
     stopped: bool,
+    /// A step message already sent by `send_action`, awaiting its answer.
+    sent: Option<usize>,
     message: String,
 }
 
@@ -244,6 +246,7 @@ impl ProcessTask {
             success: false,
             running: false,
             stopped: false,
+            sent: None,
             message: String::new(),
         };
         task.handshake(settings)?;
@@ -337,6 +340,12 @@ impl ProcessTask {
 
     /// Send one line and wait for one line back.
     fn exchange(&mut self, waiting_for: &str, message: &str) -> Result<String, TaskError> {
+        self.send(waiting_for, message)?;
+        self.receive(waiting_for)
+    }
+
+    /// Write one message line to the program.
+    fn send(&mut self, waiting_for: &str, message: &str) -> Result<(), TaskError> {
         if self.stopped {
             return Err(TaskError::Process {
                 task: self.name.clone(),
@@ -366,6 +375,11 @@ impl ProcessTask {
             };
             return Err(self.fail(failure));
         }
+        Ok(())
+    }
+
+    /// Wait (at most `timeout`) for the program's answer line.
+    fn receive(&mut self, waiting_for: &str) -> Result<String, TaskError> {
         match self.lines.recv_timeout(self.timeout) {
             Ok(Line::Text(line)) => Ok(line),
             Ok(Line::End) | Err(RecvTimeoutError::Disconnected) => {
@@ -439,6 +453,11 @@ impl ProcessTask {
         let _ = self.child.wait();
     }
 
+    fn send_step(&mut self, action: usize) -> Result<(), TaskError> {
+        let message = format!("{{\"type\":\"step\",\"action\":{action}}}");
+        self.send("step", &message)
+    }
+
     fn parse_reply(
         &mut self,
         waiting_for: &str,
@@ -500,8 +519,17 @@ impl Task for ProcessTask {
             ));
         }
         check_obs_len(&self.name, obs, self.obs_space.len())?;
-        let message = format!("{{\"type\":\"step\",\"action\":{action}}}");
-        let line = self.exchange("step", &message)?;
+        match self.sent.take() {
+            Some(sent) if sent == action => {}
+            Some(sent) => {
+                return Err(TaskError::Lanes(format!(
+                    "{}: step({action}) after send_action({sent})",
+                    self.name
+                )))
+            }
+            None => self.send_step(action)?,
+        }
+        let line = self.receive("step")?;
         let reply = self.parse_reply("step", &line, STEP_EXPECTED)?;
         let ending = match reply.ending.as_deref() {
             None | Some("running") => Ending::Running,
@@ -532,6 +560,13 @@ impl Task for ProcessTask {
     }
     fn has_success(&self) -> bool {
         self.success
+    }
+    fn send_action(&mut self, action: usize) -> Result<(), TaskError> {
+        if self.running && action < self.actions.count() && self.sent.is_none() {
+            self.send_step(action)?;
+            self.sent = Some(action);
+        }
+        Ok(())
     }
     fn drain_messages(&mut self, out: &mut Vec<String>) {
         let mut s = self.stderr.lock().unwrap_or_else(|p| p.into_inner());

@@ -152,6 +152,13 @@ pub trait Task: Send {
     fn step(&mut self, action: usize, obs: &mut [f32]) -> Result<Outcome, TaskError>;
     /// Whether the task reports success at episode ends.
     fn has_success(&self) -> bool;
+    /// Start a step whose answer comes from outside (an outside program), so that
+    /// [`crate::Lanes`] can have every lane's program work at once: it calls this
+    /// for each lane, then `step` with the same actions. Built-in tasks do nothing.
+    fn send_action(&mut self, action: usize) -> Result<(), TaskError> {
+        let _ = action;
+        Ok(())
+    }
     /// Move any diagnostic lines the task collected (an outside program's stderr,
     /// prefixed with the task's name) into `out`. Built-in tasks have none.
     fn drain_messages(&mut self, out: &mut Vec<String>) {
