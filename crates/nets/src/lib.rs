@@ -10,6 +10,7 @@
 #![deny(missing_docs)]
 
 pub mod actor;
+pub mod affine;
 pub mod bench;
 pub mod checkpoint;
 pub mod conv;

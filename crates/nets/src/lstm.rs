@@ -176,29 +176,15 @@ impl LstmSeq {
                 1,
                 Parallelism::None,
             );
-            for r in 0..m {
-                let row = std::slice::from_raw_parts_mut(gates.add(r * g4), g4);
-                let (ifg, o) = row.split_at_mut(3 * h);
-                let (if_, g) = ifg.split_at_mut(2 * h);
-                fastmath::sigmoid_slice(if_);
-                fastmath::tanh_slice(g);
-                fastmath::sigmoid_slice(o);
-                let (i, f) = if_.split_at(h);
-                let cp = std::slice::from_raw_parts(c_prev.add(r * h), h);
-                let base = (t * b + r0 + r) * h;
-                let hc = std::slice::from_raw_parts_mut(out.0.add(base), h);
-                let cc = std::slice::from_raw_parts_mut(out_c.add(base), h);
-                let tc = std::slice::from_raw_parts_mut(tanh_c.0.add(base), h);
-                for j in 0..h {
-                    let c = f[j] * cp[j] + i[j] * g[j];
-                    cc[j] = c;
-                    tc[j] = c;
-                }
-                fastmath::tanh_slice(tc);
-                for j in 0..h {
-                    hc[j] = o[j] * tc[j];
-                }
-            }
+            let base = (t * b + r0) * h;
+            forward_cells(
+                h,
+                std::slice::from_raw_parts_mut(gates, m * g4),
+                std::slice::from_raw_parts(c_prev, m * h),
+                std::slice::from_raw_parts_mut(out.0.add(base), m * h),
+                std::slice::from_raw_parts_mut(out_c.add(base), m * h),
+                std::slice::from_raw_parts_mut(tanh_c.0.add(base), m * h),
+            );
         }
     }
 
@@ -230,32 +216,18 @@ impl LstmSeq {
             } else {
                 out_c.add(((t - 1) * b + r0) * h)
             };
-            for r in 0..m {
-                let base = (t * b + r0 + r) * h;
-                let a = std::slice::from_raw_parts(acts.0.add((t * b + r0 + r) * g4), g4);
-                let (i, rest) = a.split_at(h);
-                let (f, rest) = rest.split_at(h);
-                let (g, o) = rest.split_at(h);
-                let tc = std::slice::from_raw_parts(tanh_c.0.add(base), h);
-                let cp = std::slice::from_raw_parts(c_prev.add(r * h), h);
-                let gh = std::slice::from_raw_parts(gout.0.add(base), h);
-                let gc = std::slice::from_raw_parts(gout_c.add(base), h);
-                let d = std::slice::from_raw_parts_mut(dxg.0.add((t * b + r0 + r) * g4), g4);
-                let (di, rest) = d.split_at_mut(h);
-                let (df, rest) = rest.split_at_mut(h);
-                let (dg, do_) = rest.split_at_mut(h);
-                let dhn = &mut dh_next[r * h..(r + 1) * h];
-                let dcn = &mut dc_next[r * h..(r + 1) * h];
-                for j in 0..h {
-                    let dh = gh[j] + dhn[j];
-                    let dc = gc[j] + dcn[j] + dh * o[j] * (1.0 - tc[j] * tc[j]);
-                    do_[j] = dh * tc[j] * o[j] * (1.0 - o[j]);
-                    di[j] = dc * g[j] * i[j] * (1.0 - i[j]);
-                    dg[j] = dc * i[j] * (1.0 - g[j] * g[j]);
-                    df[j] = dc * cp[j] * f[j] * (1.0 - f[j]);
-                    dcn[j] = dc * f[j];
-                }
-            }
+            let base = (t * b + r0) * h;
+            backward_cells(
+                h,
+                std::slice::from_raw_parts(acts.0.add((t * b + r0) * g4), m * g4),
+                std::slice::from_raw_parts(tanh_c.0.add(base), m * h),
+                std::slice::from_raw_parts(c_prev, m * h),
+                std::slice::from_raw_parts(gout.0.add(base), m * h),
+                std::slice::from_raw_parts(gout_c.add(base), m * h),
+                std::slice::from_raw_parts_mut(dxg.0.add((t * b + r0) * g4), m * g4),
+                &mut dh_next,
+                &mut dc_next,
+            );
             // dh_{t-1} = da_t W_hh  ([m, 4H] x [4H, H])
             mm(
                 m,
@@ -275,6 +247,78 @@ impl LstmSeq {
         }
         std::ptr::copy_nonoverlapping(dh_next.as_ptr(), ds0.0.add(r0 * h), m * h);
         std::ptr::copy_nonoverlapping(dc_next.as_ptr(), ds0.0.add(b * h + r0 * h), m * h);
+    }
+}
+
+crate::multiversion! {
+    /// The cell update of one step for a block of rows: `gates` `[m, 4H]` pre-activations
+    /// in, activations out (i, f, g, o); `c_prev` `[m, H]`; writes h, c and tanh(c).
+    fn forward_cells(h: usize, gates: &mut [f32], c_prev: &[f32], hs: &mut [f32], cs: &mut [f32], tcs: &mut [f32]) {
+        let g4 = 4 * h;
+        for (r, row) in gates.chunks_exact_mut(g4).enumerate() {
+            let (ifg, o) = row.split_at_mut(3 * h);
+            let (if_, g) = ifg.split_at_mut(2 * h);
+            for x in if_.iter_mut() {
+                *x = fastmath::sigmoid(*x);
+            }
+            for x in g.iter_mut() {
+                *x = fastmath::tanh(*x);
+            }
+            for x in o.iter_mut() {
+                *x = fastmath::sigmoid(*x);
+            }
+            let (i, f) = if_.split_at(h);
+            let cp = &c_prev[r * h..(r + 1) * h];
+            let hc = &mut hs[r * h..(r + 1) * h];
+            let cc = &mut cs[r * h..(r + 1) * h];
+            let tc = &mut tcs[r * h..(r + 1) * h];
+            for j in 0..h {
+                let c = f[j] * cp[j] + i[j] * g[j];
+                cc[j] = c;
+                let t = fastmath::tanh(c);
+                tc[j] = t;
+                hc[j] = o[j] * t;
+            }
+        }
+    }
+}
+
+crate::multiversion! {
+    /// The backward pass of one step's cell update for a block of rows; `dhn`/`dcn` carry
+    /// the recurrent gradients in (from step t+1) and `dcn` carries dc_{t-1} out; `d`
+    /// receives the gate pre-activation gradients `[m, 4H]`.
+    fn backward_cells(
+        h: usize,
+        acts: &[f32],
+        tcs: &[f32],
+        c_prev: &[f32],
+        ghs: &[f32],
+        gcs: &[f32],
+        d: &mut [f32],
+        dhn: &mut [f32],
+        dcn: &mut [f32],
+    ) {
+        let g4 = 4 * h;
+        for (r, (a, drow)) in acts.chunks_exact(g4).zip(d.chunks_exact_mut(g4)).enumerate() {
+            let (i, rest) = a.split_at(h);
+            let (f, rest) = rest.split_at(h);
+            let (g, o) = rest.split_at(h);
+            let rs = r * h..(r + 1) * h;
+            let (tc, cp, gh, gc) = (&tcs[rs.clone()], &c_prev[rs.clone()], &ghs[rs.clone()], &gcs[rs.clone()]);
+            let (dhr, dcr) = (&dhn[rs.clone()], &mut dcn[rs]);
+            let (di, rest) = drow.split_at_mut(h);
+            let (df, rest) = rest.split_at_mut(h);
+            let (dg, do_) = rest.split_at_mut(h);
+            for j in 0..h {
+                let dh = gh[j] + dhr[j];
+                let dc = gc[j] + dcr[j] + dh * o[j] * (1.0 - tc[j] * tc[j]);
+                do_[j] = dh * tc[j] * o[j] * (1.0 - o[j]);
+                di[j] = dc * g[j] * i[j] * (1.0 - i[j]);
+                dg[j] = dc * i[j] * (1.0 - g[j] * g[j]);
+                df[j] = dc * cp[j] * f[j] * (1.0 - f[j]);
+                dcr[j] = dc * f[j];
+            }
+        }
     }
 }
 

@@ -170,9 +170,9 @@ pub struct Network {
     params: Vec<(String, Var)>,
 }
 
-/// `x w^T + b` for `x` `[rows, in]`, `w` `[out, in]`, `b` `[out]`.
+/// `x w^T + b` for `x` `[rows, in]`, `w` `[out, in]`, `b` `[out]` (one fused op).
 pub(crate) fn affine(x: &Tensor, w: &Tensor, b: &Tensor) -> candle_core::Result<Tensor> {
-    x.matmul(&w.t()?)?.broadcast_add(b)
+    crate::affine::affine(x, w, b)
 }
 
 fn param(v: &Var, grad: bool) -> Tensor {
