@@ -87,17 +87,27 @@ fn bad_specs_exit_2_with_every_error_located() {
 fn explain_shows_origins_and_the_reference() {
     let o = mnemon(&[
         "explain",
-        "specs/tmaze-none.toml",
+        "crates/spec/tests/fixtures/child.toml",
         "--set",
         "replay.burn_in=12",
     ]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
     let out = String::from_utf8_lossy(&o.stdout);
-    assert!(out.contains("[specs/tmaze-none.toml:5]"), "{out}");
-    assert!(out.contains("[preset specs/tmaze-lstm.toml:"), "{out}");
-    assert!(out.contains("[preset specs/presets/small.toml:"), "{out}");
+    assert!(
+        out.contains("[crates/spec/tests/fixtures/child.toml:2]"),
+        "{out}"
+    );
+    assert!(
+        out.contains("[preset crates/spec/tests/fixtures/preset.toml:16]"),
+        "{out}"
+    );
     assert!(out.contains("burn_in = 12") && out.contains("[--set replay.burn_in=12]"));
     assert!(out.contains("[default]"));
+
+    // A shipped spec: its values name the files they come from.
+    let o = mnemon(&["explain", "specs/tmaze-none.toml"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    assert!(String::from_utf8_lossy(&o.stdout).contains("[preset specs/tmaze-lstm.toml:"));
 
     let o = mnemon(&["explain", "--reference"]);
     assert_eq!(o.status.code(), Some(0));

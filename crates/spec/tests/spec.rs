@@ -27,6 +27,12 @@ fn shipped() -> Vec<PathBuf> {
     out
 }
 
+fn fixture(name: &str) -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/fixtures")
+        .join(name)
+}
+
 fn spec_of(text: &str) -> Spec {
     match load_str(text, "t.toml", &[]) {
         Ok(r) => r.spec,
@@ -63,7 +69,11 @@ fn shipped_specs_load_and_open_with_a_comment() {
             "{} must open with a comment",
             p.display()
         );
-        assert!(text.contains("Expected result"), "{}", p.display());
+        assert!(
+            text.contains("Expected result") || text.contains("Measured"),
+            "{}: the header says what result to expect",
+            p.display()
+        );
     }
 }
 
@@ -189,7 +199,7 @@ fn set_overrides_are_typed_and_recorded() {
     .iter()
     .map(|s| s.to_string())
     .collect();
-    let r = load(&root().join("specs/tmaze-lstm.toml"), &sets).unwrap();
+    let r = load(&fixture("preset.toml"), &sets).unwrap();
     assert_eq!(r.spec.replay.burn_in, 20);
     assert_eq!(
         r.spec.learn.rate,
@@ -207,32 +217,34 @@ fn set_overrides_are_typed_and_recorded() {
         r.origins["replay.burn_in"],
         Origin::Set("replay.burn_in=20".into())
     );
-    let preset_line = std::fs::read_to_string(root().join("specs/presets/small.toml"))
-        .unwrap()
-        .lines()
-        .position(|l| l.starts_with("discount"))
-        .unwrap()
-        + 1;
-    match &r.origins["learn.discount"] {
-        Origin::Preset { path, line } => {
-            assert!(path.ends_with("presets/small.toml"), "{path:?}");
-            assert_eq!(*line, preset_line);
+    // Values from an extended file are marked as preset values, with their line.
+    let r = load(&fixture("child.toml"), &[]).unwrap();
+    assert_eq!(
+        r.origins["learn.discount"],
+        Origin::Preset {
+            path: fixture("preset.toml"),
+            line: 16
         }
-        other => panic!("{other:?}"),
-    }
+    );
+    assert_eq!(
+        r.origins["task.length"],
+        Origin::File {
+            path: fixture("child.toml"),
+            line: 6
+        }
+    );
     assert_eq!(r.origins["learn.adam_epsilon"], Origin::Default);
+    assert_eq!(r.spec.learn.discount, 0.97);
+    assert_eq!(r.spec.task.int("length"), Some(6));
+    assert_eq!(r.spec.task.int("time_limit"), Some(24));
     // A deep set merges into a part of the same kind.
-    let r = load(
-        &root().join("specs/tmaze-lstm.toml"),
-        &["agent.memory.size=256".into()],
-    )
-    .unwrap();
+    let r = load(&fixture("preset.toml"), &["agent.memory.size=256".into()]).unwrap();
     assert_eq!(r.spec.agent.memory, Memory::Lstm { size: 256 });
 }
 
 #[test]
 fn explain_shows_origins_and_docs() {
-    let p = root().join("specs/tmaze-none.toml");
+    let p = fixture("child.toml");
     let r = load(&p, &["replay.burn_in=12".into()]).unwrap();
     let text = explain(&r);
     let line = |key: &str| -> String {
@@ -241,17 +253,17 @@ fn explain_shows_origins_and_docs() {
             .unwrap_or_else(|| panic!("no {key} in\n{text}"))
             .to_string()
     };
-    // From the file itself, from the extended files, from --set, from defaults.
+    // From the file itself, from the extended file, from --set, from defaults.
     assert!(
-        line("name").contains(&format!("[{}:5]", p.display())),
+        line("name").contains(&format!("[{}:2]", p.display())),
         "{}",
         line("name")
     );
-    let lstm = root().join("specs/tmaze-lstm.toml");
+    let preset = fixture("preset.toml");
     assert!(
-        line("length").contains(&format!("[preset {}:10]", lstm.display())),
+        line("discount").contains(&format!("[preset {}:16]", preset.display())),
         "{}",
-        line("length")
+        line("discount")
     );
     assert!(line("burn_in").contains("[--set replay.burn_in=12]"));
     assert!(line("adam_epsilon").contains("[default]"));
@@ -297,7 +309,7 @@ eval = { every = 0 }
 
 #[test]
 fn vary_expands_axes_times_seeds() {
-    let r = load(&root().join("specs/compare-memory.toml"), &[]).unwrap();
+    let r = load(&fixture("compare.toml"), &[]).unwrap();
     assert_eq!(r.vary.axes.len(), 1);
     assert_eq!(r.vary.seeds, vec![1, 2, 3]);
     let v = expand(&r).unwrap();
