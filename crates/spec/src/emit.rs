@@ -387,7 +387,8 @@ pub fn reference_markdown() -> String {
          linear). `extends = \"other.toml\"` starts from another spec (relative to this file) and merges\n\
          tables key by key; a part table whose `kind` changes replaces the inherited one whole.\n\
          `--set key.path=value` overrides any key from the command line (the value is read as TOML,\n\
-         else as a bare string). A part may be written as just its kind: `memory = \"none\"`.\n",
+         else as a bare string); setting a part's `kind` to another kind (`--set agent.memory.kind=none`)\n\
+         starts that part afresh. A part may be written as just its kind: `memory = \"none\"`.\n",
     );
     // Top-level keys, then each section in registry order.
     let mut order: Vec<&str> = Vec::new();

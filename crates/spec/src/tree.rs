@@ -504,6 +504,14 @@ pub(crate) fn insert_path(
             }
         }
     }
+    // `--set agent.memory.kind=none` starts the part afresh, as a whole table with a
+    // new kind would: the old kind's settings do not carry over.
+    if last == "kind" {
+        let changes = matches!((kind_of(table), &value.v), (Some(a), NodeV::Str(b)) if a != b);
+        if changes {
+            table.clear();
+        }
+    }
     match table.get_mut(&last) {
         Some(b) => merge_node(b, value),
         None => {

@@ -237,6 +237,15 @@ fn set_overrides_are_typed_and_recorded() {
     assert_eq!(r.spec.learn.discount, 0.97);
     assert_eq!(r.spec.task.int("length"), Some(6));
     assert_eq!(r.spec.task.int("time_limit"), Some(24));
+    // Changing a part's kind drops the old kind's settings; the task too.
+    let r = load(
+        &fixture("child.toml"),
+        &["agent.memory.kind=lstm".into(), "task.kind=recall".into()],
+    )
+    .unwrap();
+    assert_eq!(r.spec.agent.memory, Memory::Lstm { size: 128 });
+    assert_eq!(r.spec.task.kind, "recall");
+    assert_eq!(r.spec.task.int("symbols"), Some(4));
     // A deep set merges into a part of the same kind.
     let r = load(&fixture("preset.toml"), &["agent.memory.size=256".into()]).unwrap();
     assert_eq!(r.spec.agent.memory, Memory::Lstm { size: 256 });
