@@ -467,9 +467,14 @@ impl ProcessTask {
         let reply: Reply = match serde_json::from_str(line) {
             Ok(r) => r,
             Err(e) => {
+                let problem = if e.is_data() {
+                    e.to_string()
+                } else {
+                    format!("not JSON ({e})")
+                };
                 let failure = ProcessFailure::Garbage {
                     waiting_for: waiting_for.into(),
-                    problem: e.to_string(),
+                    problem,
                     line: shorten(line),
                     expected: expected.into(),
                 };

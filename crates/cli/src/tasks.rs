@@ -2,6 +2,7 @@
 //! one task with a simple policy (a user's first check of a new task);
 //! `mnemon tasks bench` measures stepping speed for 1 and 8 lanes.
 
+use std::io::Write;
 use std::path::Path;
 use std::time::Instant;
 
@@ -12,11 +13,10 @@ use mnemon_spec::{TaskSpec, Value};
 
 use crate::Failure;
 
-/// println! that ignores a closed stdout (`mnemon tasks | head`) instead of panicking.
+/// writeln! that ignores a closed stdout (`mnemon tasks | head`) instead of panicking.
 macro_rules! out {
-    ($($arg:tt)*) => {{
-        use std::io::Write;
-        let _ = writeln!(std::io::stdout(), $($arg)*);
+    ($w:expr, $($arg:tt)*) => {{
+        let _ = writeln!($w, $($arg)*);
     }};
 }
 
@@ -107,12 +107,11 @@ pub struct BenchArgs {
 pub fn run(args: TasksArgs) -> Result<(), Failure> {
     match args.action {
         None => {
-            use std::io::Write;
             let _ = std::io::stdout().write_all(listing().as_bytes());
             Ok(())
         }
-        Some(TasksAction::Try(a)) => run_try(a),
-        Some(TasksAction::Bench(a)) => run_bench(a),
+        Some(TasksAction::Try(a)) => run_try(a, &mut std::io::stdout()),
+        Some(TasksAction::Bench(a)) => run_bench(a, &mut std::io::stdout()),
     }
 }
 
@@ -273,17 +272,14 @@ pub fn task_spec(target: &str, sets: &[String]) -> Result<TaskSpec, Failure> {
     }
 }
 
-/// Map a task error to an exit: settings, maps and unknown kinds are bad input (2);
-/// a task failing while it runs is a failed run (1).
+/// Map a task error to an exit code. Settings, maps, unknown kinds and outside
+/// programs that misbehave are the user's input (2); anything else is internal (1).
 fn task_failure(e: TaskError) -> Failure {
     match e {
-        TaskError::UnknownKind { .. } | TaskError::Setting { .. } | TaskError::Map { .. } => {
-            Failure::BadInput(format!("mnemon tasks: {e}"))
-        }
-        TaskError::Process {
-            failure: mnemon_envs::ProcessFailure::Spawn { .. },
-            ..
-        } => Failure::BadInput(format!("mnemon tasks: {e}")),
+        TaskError::UnknownKind { .. }
+        | TaskError::Setting { .. }
+        | TaskError::Map { .. }
+        | TaskError::Process { .. } => Failure::BadInput(format!("mnemon tasks: {e}")),
         other => Failure::Internal(anyhow::anyhow!("{other}")),
     }
 }
@@ -308,7 +304,7 @@ fn print_messages(lanes: &mut Lanes, buf: &mut Vec<String>) {
     }
 }
 
-fn run_try(args: TryArgs) -> Result<(), Failure> {
+fn run_try(args: TryArgs, w: &mut dyn Write) -> Result<(), Failure> {
     if args.episodes == 0 {
         return Err(Failure::BadInput(
             "mnemon tasks try: --episodes must be at least 1".into(),
@@ -335,14 +331,15 @@ fn run_try(args: TryArgs) -> Result<(), Failure> {
         }),
     };
     let has_success = lanes.task().has_success();
-    out!("task      {}", describe_spec(&spec));
-    out!("observe   {}", lanes.task().obs_space().describe());
-    out!("actions   {}", names.join(", "));
+    out!(w, "task      {}", describe_spec(&spec));
+    out!(w, "observe   {}", lanes.task().obs_space().describe());
+    out!(w, "actions   {}", names.join(", "));
     let policy = match fixed {
         Some(i) => format!("always {}", names[i]),
         None => "uniformly random".into(),
     };
     out!(
+        w,
         "policy    {policy}, {} episodes, seed {}",
         args.episodes,
         args.seed
@@ -385,19 +382,21 @@ fn run_try(args: TryArgs) -> Result<(), Failure> {
     let (rm, rlo, rhi) = stats(&returns);
     let lf: Vec<f64> = lengths.iter().map(|&l| l as f64).collect();
     let (lm, llo, lhi) = stats(&lf);
-    out!("return    mean {rm:.4}  min {rlo:.4}  max {rhi:.4}");
-    out!("length    mean {lm:.2}  min {llo}  max {lhi}");
+    out!(w, "return    mean {rm:.4}  min {rlo:.4}  max {rhi:.4}");
+    out!(w, "length    mean {lm:.2}  min {llo}  max {lhi}");
     if has_success {
         out!(
+            w,
             "success   {:.1}% ({successes} of {})",
             100.0 * successes as f64 / n,
             returns.len()
         );
     } else {
-        out!("success   not defined for {}", spec.kind);
+        out!(w, "success   not defined for {}", spec.kind);
     }
-    out!("endings   terminal {terminal}, truncated {truncated}");
+    out!(w, "endings   terminal {terminal}, truncated {truncated}");
     out!(
+        w,
         "speed     {} steps/s ({steps} steps in {:.2} ms, policy included)",
         rate(steps as f64 / secs),
         secs * 1e3
@@ -415,7 +414,7 @@ fn rate(r: f64) -> String {
     }
 }
 
-fn run_bench(args: BenchArgs) -> Result<(), Failure> {
+fn run_bench(args: BenchArgs, w: &mut dyn Write) -> Result<(), Failure> {
     let spec = task_spec(&args.target, &args.sets)?;
     let default_steps = if spec.kind == "process" {
         20_000
@@ -424,6 +423,7 @@ fn run_bench(args: BenchArgs) -> Result<(), Failure> {
     };
     let total = args.steps.unwrap_or(default_steps).max(1);
     out!(
+        w,
         "task {}: steps per second, all lanes together, actions uniformly random",
         describe_spec(&spec)
     );
@@ -449,6 +449,7 @@ fn run_bench(args: BenchArgs) -> Result<(), Failure> {
         let secs = start.elapsed().as_secs_f64();
         let done = rounds * count as u64;
         out!(
+            w,
             "  {count:>3} lane{}  {:>9} steps/s  ({done} steps, {episodes} episodes, {secs:.3} s)",
             if count == 1 { " " } else { "s" },
             rate(done as f64 / secs)
@@ -502,6 +503,24 @@ mod tests {
         ));
     }
 
+    fn try_text(
+        target: &str,
+        policy: Policy,
+        sets: &[&str],
+        episodes: u64,
+    ) -> Result<String, Failure> {
+        let args = TryArgs {
+            target: target.into(),
+            episodes,
+            policy,
+            sets: sets.iter().map(|s| s.to_string()).collect(),
+            seed: 1,
+        };
+        let mut out = Vec::new();
+        run_try(args, &mut out)?;
+        Ok(String::from_utf8(out).unwrap())
+    }
+
     #[test]
     fn try_runs_every_builtin_task() {
         for kind in [
@@ -512,23 +531,31 @@ mod tests {
             "recall",
             "fog-grid",
         ] {
-            let args = TryArgs {
-                target: kind.into(),
-                episodes: 5,
-                policy: Policy::Random,
-                sets: vec![],
-                seed: 1,
-            };
-            assert!(run_try(args).is_ok(), "{kind}");
+            let text = try_text(kind, Policy::Random, &[], 5).ok().unwrap();
+            assert!(
+                text.contains(&format!("task      {kind}")) && text.contains("steps/s"),
+                "{text}"
+            );
         }
-        let bad = TryArgs {
-            target: "tmaze".into(),
-            episodes: 5,
-            policy: Policy::Fixed("jump".into()),
-            sets: vec![],
-            seed: 1,
-        };
-        assert!(matches!(run_try(bad), Err(Failure::BadInput(_))));
+        // Always east in the T-maze: stuck at the junction until the time limit.
+        let text = try_text("tmaze", Policy::Fixed("east".into()), &["length=3"], 4)
+            .ok()
+            .unwrap();
+        assert!(text.contains("success   0.0% (0 of 4)"), "{text}");
+        assert!(text.contains("endings   terminal 0, truncated 4"), "{text}");
+        assert!(text.contains("length    mean 15.00"), "{text}");
+        // Always listening to the tiger: -1 per step over the horizon.
+        let text = try_text("tiger", Policy::Fixed("0".into()), &["horizon=7"], 3)
+            .ok()
+            .unwrap();
+        assert!(
+            text.contains("return    mean -7.0000  min -7.0000  max -7.0000"),
+            "{text}"
+        );
+        assert!(matches!(
+            try_text("tmaze", Policy::Fixed("jump".into()), &[], 5),
+            Err(Failure::BadInput(_))
+        ));
         assert_eq!(parse_policy("fixed:east"), Ok(Policy::Fixed("east".into())));
         assert!(parse_policy("greedy").is_err());
     }
@@ -543,13 +570,27 @@ mod tests {
             return;
         }
         let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../examples/tasks/beacon.py");
-        let args = TryArgs {
-            target: "process".into(),
-            episodes: 10,
-            policy: Policy::Fixed("fly-east".into()),
-            sets: vec![format!("command=python3 {}", script.display())],
-            seed: 1,
-        };
-        assert!(run_try(args).is_ok());
+        let set = format!("command=python3 {}", script.display());
+        // Flying east reaches the east end in 5 steps: the beacon when it is there
+        // (return 1 - 5 * 0.01 = 0.95), else the wrong end (-0.05); both terminal.
+        let text = try_text("process", Policy::Fixed("fly-east".into()), &[&set], 20)
+            .ok()
+            .unwrap();
+        assert!(text.contains("length    mean 5.00  min 5  max 5"), "{text}");
+        assert!(
+            text.contains("endings   terminal 20, truncated 0"),
+            "{text}"
+        );
+        assert!(text.contains("min -0.0500  max 0.9500"), "{text}");
+        let bad = format!(
+            "command=python3 {}",
+            Path::new(env!("CARGO_MANIFEST_DIR"))
+                .join("../../envs/tests/fixtures/misbehave.py version")
+                .display()
+        );
+        match try_text("process", Policy::Random, &[&bad], 1) {
+            Err(Failure::BadInput(msg)) => assert!(msg.contains("protocol version 2"), "{msg}"),
+            _ => panic!("a wrong protocol version must be bad input"),
+        }
     }
 }
