@@ -344,7 +344,7 @@ fn run_try(args: TryArgs, w: &mut dyn Write) -> Result<(), Failure> {
         args.episodes,
         args.seed
     );
-    let mut rng = Rng::new(args.seed ^ 0x5EED_0F_A11CE);
+    let mut rng = Rng::new(args.seed ^ 0x05EE_D0FA_11CE);
     let (mut returns, mut lengths) = (Vec::new(), Vec::new());
     let (mut successes, mut terminal, mut truncated, mut steps) = (0u64, 0u64, 0u64, 0u64);
     let mut messages = Vec::new();

@@ -41,11 +41,19 @@ fn a_killed_run_resumes_from_its_last_checkpoint() {
     let run = tmp.path().join("tmaze-none").join("seed1-001");
     let started = Instant::now();
     while checkpoints(&run).len() < 3 {
-        assert!(started.elapsed() < Duration::from_secs(60), "no checkpoints appeared");
+        assert!(
+            started.elapsed() < Duration::from_secs(60),
+            "no checkpoints appeared"
+        );
         if let Some(status) = child.try_wait().unwrap() {
             let mut err = String::new();
             use std::io::Read;
-            child.stderr.take().unwrap().read_to_string(&mut err).unwrap();
+            child
+                .stderr
+                .take()
+                .unwrap()
+                .read_to_string(&mut err)
+                .unwrap();
             panic!("training exited early ({status}): {err}");
         }
         std::thread::sleep(Duration::from_millis(20));
@@ -80,12 +88,23 @@ fn a_killed_run_resumes_from_its_last_checkpoint() {
         steps.push(v["env_steps"].as_u64().unwrap());
     }
     let end = steps.last().copied().unwrap();
-    assert!(end >= last_steps + 4000, "resumed run ended at {end}, before the new budget");
+    assert!(
+        end >= last_steps + 4000,
+        "resumed run ended at {end}, before the new budget"
+    );
     // Counters continue from the checkpoint: no record after the resume goes below it.
     let resume_at = steps.iter().rposition(|&s| s <= last_steps + 400).unwrap();
     assert!(steps[resume_at..].windows(2).all(|w| w[0] <= w[1]));
     for ckpt in checkpoints(&run) {
-        let st = mnemon().args(["eval", ckpt.to_str().unwrap(), "--episodes", "4", "--json"]).output().unwrap();
-        assert!(st.status.success(), "{}: {}", ckpt.display(), String::from_utf8_lossy(&st.stderr));
+        let st = mnemon()
+            .args(["eval", ckpt.to_str().unwrap(), "--episodes", "4", "--json"])
+            .output()
+            .unwrap();
+        assert!(
+            st.status.success(),
+            "{}: {}",
+            ckpt.display(),
+            String::from_utf8_lossy(&st.stderr)
+        );
     }
 }

@@ -415,7 +415,7 @@ impl Learner {
         let mut count = 0usize;
         let mut q_taken_sum = 0.0f64;
         let mut discrepancy: Option<(f64, f64)> = None;
-        let measure = self.learner_steps % 50 == 0 && sl > 0;
+        let measure = self.learner_steps.is_multiple_of(50) && sl > 0;
         for (burn, rows) in &groups {
             let arr = gather(rows);
             let input = arr.input(rows.len(), t, sl);
@@ -545,7 +545,10 @@ impl Learner {
             .map(|(d, td)| (d.slot, sequence_priority(td, eta)))
             .collect();
         self.replay.update_priorities(&updates);
-        if self.learner_steps % spec.learn.target_every.max(1) == 0 {
+        if self
+            .learner_steps
+            .is_multiple_of(spec.learn.target_every.max(1))
+        {
             self.target.copy_from(&self.online).map_err(nets)?;
         }
         Ok(UpdateStats {

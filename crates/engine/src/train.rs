@@ -318,16 +318,15 @@ pub fn train(spec: &Spec, options: TrainOptions, observer: &mut dyn Observer) ->
             discount: spec.learn.discount,
             max_steps: 0,
         };
-        let mut next_eval = if spec.run.eval_every > 0 {
-            (counters.env_steps / spec.run.eval_every + 1) * spec.run.eval_every
-        } else {
-            u64::MAX
+        // The first multiple of `every` after the current step (never, for 0).
+        let next_multiple = |every: u64| {
+            counters
+                .env_steps
+                .checked_div(every)
+                .map_or(u64::MAX, |k| (k + 1) * every)
         };
-        let mut next_ckpt = if spec.run.checkpoint_every > 0 {
-            (counters.env_steps / spec.run.checkpoint_every + 1) * spec.run.checkpoint_every
-        } else {
-            u64::MAX
-        };
+        let mut next_eval = next_multiple(spec.run.eval_every);
+        let mut next_ckpt = next_multiple(spec.run.checkpoint_every);
         loop {
             let round_start = Instant::now();
             for tx in &actor_txs {

@@ -568,17 +568,34 @@ mod tests {
     fn packed_dense_matches_naive_for_all_block_shapes() {
         use rand::{Rng, SeedableRng};
         let mut rng = rand::rngs::StdRng::seed_from_u64(3);
-        for (rows, inp, out) in [(1, 7, 3), (1, 9, 70), (4, 5, 16), (5, 3, 33), (9, 17, 100), (8, 128, 512)] {
-            let w: Vec<f32> = (0..out * inp).map(|_| rng.random_range(-1.0..1.0)).collect();
+        for (rows, inp, out) in [
+            (1, 7, 3),
+            (1, 9, 70),
+            (4, 5, 16),
+            (5, 3, 33),
+            (9, 17, 100),
+            (8, 128, 512),
+        ] {
+            let w: Vec<f32> = (0..out * inp)
+                .map(|_| rng.random_range(-1.0..1.0))
+                .collect();
             let b: Vec<f32> = (0..out).map(|_| rng.random_range(-1.0..1.0)).collect();
-            let x: Vec<f32> = (0..rows * inp).map(|_| rng.random_range(-1.0..1.0)).collect();
+            let x: Vec<f32> = (0..rows * inp)
+                .map(|_| rng.random_range(-1.0..1.0))
+                .collect();
             let d = Dense::pack(&w, &b, out, inp);
             let mut y = vec![f32::NAN; rows * out];
             d.apply(&x, rows, &mut y);
             for r in 0..rows {
                 for o in 0..out {
-                    let want: f32 = b[o] + (0..inp).map(|k| x[r * inp + k] * w[o * inp + k]).sum::<f32>();
-                    assert!((y[r * out + o] - want).abs() < 1e-4, "rows {rows} in {inp} out {out} at ({r}, {o})");
+                    let want: f32 = b[o]
+                        + (0..inp)
+                            .map(|k| x[r * inp + k] * w[o * inp + k])
+                            .sum::<f32>();
+                    assert!(
+                        (y[r * out + o] - want).abs() < 1e-4,
+                        "rows {rows} in {inp} out {out} at ({r}, {o})"
+                    );
                 }
             }
         }

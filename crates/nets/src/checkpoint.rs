@@ -18,6 +18,9 @@ use crate::error::{Error, Result};
 use crate::network::{Network, Params};
 use crate::optim::Optimizer;
 
+/// Tensors of one file grouped by their prefix (`online`, `target`, ...).
+type TensorGroups<'a> = BTreeMap<&'a str, Vec<(String, Vec<usize>, Vec<f32>)>>;
+
 /// Value of the `format` metadata key.
 pub const FORMAT: &str = "mnemon-checkpoint";
 /// The checkpoint layout version this build writes and reads.
@@ -300,7 +303,7 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<Loaded> {
             format!("checksum mismatch (stored {want}, computed {got}): the file is damaged"),
         ));
     }
-    let mut groups: BTreeMap<&str, Vec<(String, Vec<usize>, Vec<f32>)>> = BTreeMap::new();
+    let mut groups: TensorGroups<'_> = BTreeMap::new();
     for (n, s, d) in &data {
         let Some((group, name)) = n.split_once('/') else {
             return Err(bad(path, format!("unexpected tensor name {n:?}")));

@@ -13,14 +13,19 @@ const LN2_LO: f32 = 1.428_606_8e-6;
 #[inline(always)]
 pub fn exp(x: f32) -> f32 {
     let x = x.clamp(-87.0, 88.0);
-    // round to nearest via the 1.5 * 2^23 trick (vectorises, unlike f32::round)
-    let n = (x * LOG2E + 12_582_912.0) - 12_582_912.0;
+    // Round x*log2(e) to the nearest integer with the 1.5 * 2^23 trick: after the add, the
+    // low mantissa bits of `t` hold the integer. Reading it from the bits (instead of a
+    // saturating `as i32`, which does not vectorise) keeps the loop branch-free SIMD.
+    const MAGIC: f32 = 12_582_912.0;
+    let t = x * LOG2E + MAGIC;
+    let n = t - MAGIC;
+    let ni = (t.to_bits() as i32).wrapping_sub(MAGIC.to_bits() as i32);
     let r = x - n * LN2_HI - n * LN2_LO;
     let p = 1.0
         + r * (1.0
             + r * (0.5
                 + r * (1.0 / 6.0 + r * (1.0 / 24.0 + r * (1.0 / 120.0 + r * (1.0 / 720.0))))));
-    let bits = ((n as i32 + 127) as u32) << 23;
+    let bits = (ni.wrapping_add(127) as u32) << 23;
     f32::from_bits(bits) * p
 }
 

@@ -360,7 +360,7 @@ pub fn sequence_priorities(
     batch: usize,
     eta: f64,
 ) -> Result<Vec<f32>> {
-    if batch == 0 || abs_td.len() % batch != 0 || mask.len() != abs_td.len() {
+    if batch == 0 || !abs_td.len().is_multiple_of(batch) || mask.len() != abs_td.len() {
         return Err(Error::shape(
             "sequence_priorities",
             format!("abs_td and mask [{batch}, L]"),
@@ -413,7 +413,7 @@ pub fn importance_weights(probs: &[f64], n: usize, correction: f64) -> Vec<f64> 
 pub fn q_discrepancy(q_fresh: &[f32], q_stored: &[f32], actions: usize, i: usize) -> Result<f64> {
     if actions == 0
         || q_fresh.len() != q_stored.len()
-        || q_fresh.len() % actions != 0
+        || !q_fresh.len().is_multiple_of(actions)
         || (i + 1) * actions > q_fresh.len()
     {
         return Err(Error::shape(

@@ -31,6 +31,8 @@ struct Saved {
     acts: Vec<f32>,
     /// `[T, B, H]`: tanh(c_t).
     tanh_c: Vec<f32>,
+    /// `[T, B, H]`: c_t.
+    cs: Vec<f32>,
 }
 
 /// One application of the fused LSTM to one sequence batch.
@@ -40,7 +42,22 @@ struct LstmSeq {
     hidden: usize,
     threads: usize,
     save: bool,
-    saved: Mutex<Option<Saved>>,
+    /// Output h and c (`[2, T, B, H]`) rather than h only (`[T, B, H]`).
+    full: bool,
+    saved: std::sync::Arc<Mutex<Option<Saved>>>,
+}
+
+/// A vector of `n` floats, every one written by `fill` before it is read.
+///
+/// Skips the zeroing pass of `vec![0.0; n]` for buffers that are overwritten anyway.
+///
+/// # Safety
+/// `fill` must write all `n` elements through the pointer it is given.
+pub(crate) unsafe fn filled(n: usize, fill: impl FnOnce(*mut f32)) -> Vec<f32> {
+    let mut v: Vec<f32> = Vec::with_capacity(n);
+    fill(v.as_mut_ptr());
+    v.set_len(n);
+    v
 }
 
 #[derive(Clone, Copy)]
@@ -139,28 +156,27 @@ impl LstmSeq {
         &self,
         r0: usize,
         r1: usize,
-        xg: CPtr,
         whh_t: CPtr,
         s0: CPtr,
-        out: Ptr,
+        hs: Ptr,
+        cs: Ptr,
         acts: Ptr,
         tanh_c: Ptr,
     ) {
         let (t_len, b, h) = (self.steps, self.batch, self.hidden);
         let g4 = 4 * h;
         let m = r1 - r0;
-        let out_c = out.0.add(t_len * b * h);
         for t in 0..t_len {
             let (h_prev, c_prev): (*const f32, *const f32) = if t == 0 {
                 (s0.0.add(r0 * h), s0.0.add(b * h + r0 * h))
             } else {
                 (
-                    out.0.add(((t - 1) * b + r0) * h),
-                    out_c.add(((t - 1) * b + r0) * h),
+                    hs.0.add(((t - 1) * b + r0) * h),
+                    cs.0.add(((t - 1) * b + r0) * h),
                 )
             };
+            // `acts` arrives holding the input projection; the recurrent term is added.
             let gates = acts.0.add((t * b + r0) * g4);
-            std::ptr::copy_nonoverlapping(xg.0.add((t * b + r0) * g4), gates, m * g4);
             mm(
                 m,
                 g4,
@@ -181,8 +197,8 @@ impl LstmSeq {
                 h,
                 std::slice::from_raw_parts_mut(gates, m * g4),
                 std::slice::from_raw_parts(c_prev, m * h),
-                std::slice::from_raw_parts_mut(out.0.add(base), m * h),
-                std::slice::from_raw_parts_mut(out_c.add(base), m * h),
+                std::slice::from_raw_parts_mut(hs.0.add(base), m * h),
+                std::slice::from_raw_parts_mut(cs.0.add(base), m * h),
                 std::slice::from_raw_parts_mut(tanh_c.0.add(base), m * h),
             );
         }
@@ -196,25 +212,24 @@ impl LstmSeq {
         r1: usize,
         whh: CPtr,
         s0: CPtr,
-        out: CPtr,
+        cs: CPtr,
         acts: CPtr,
         tanh_c: CPtr,
-        gout: CPtr,
+        gh: CPtr,
+        gc: Option<CPtr>,
         dxg: Ptr,
         ds0: Ptr,
     ) {
         let (t_len, b, h) = (self.steps, self.batch, self.hidden);
         let g4 = 4 * h;
         let m = r1 - r0;
-        let out_c = out.0.add(t_len * b * h);
-        let gout_c = gout.0.add(t_len * b * h);
         let mut dh_next = vec![0f32; m * h];
         let mut dc_next = vec![0f32; m * h];
         for t in (0..t_len).rev() {
             let c_prev: *const f32 = if t == 0 {
                 s0.0.add(b * h + r0 * h)
             } else {
-                out_c.add(((t - 1) * b + r0) * h)
+                cs.0.add(((t - 1) * b + r0) * h)
             };
             let base = (t * b + r0) * h;
             backward_cells(
@@ -222,8 +237,8 @@ impl LstmSeq {
                 std::slice::from_raw_parts(acts.0.add((t * b + r0) * g4), m * g4),
                 std::slice::from_raw_parts(tanh_c.0.add(base), m * h),
                 std::slice::from_raw_parts(c_prev, m * h),
-                std::slice::from_raw_parts(gout.0.add(base), m * h),
-                std::slice::from_raw_parts(gout_c.add(base), m * h),
+                std::slice::from_raw_parts(gh.0.add(base), m * h),
+                gc.map(|g| std::slice::from_raw_parts(g.0.add(base), m * h)),
                 std::slice::from_raw_parts_mut(dxg.0.add((t * b + r0) * g4), m * g4),
                 &mut dh_next,
                 &mut dc_next,
@@ -293,7 +308,7 @@ crate::multiversion! {
         tcs: &[f32],
         c_prev: &[f32],
         ghs: &[f32],
-        gcs: &[f32],
+        gcs: Option<&[f32]>,
         d: &mut [f32],
         dhn: &mut [f32],
         dcn: &mut [f32],
@@ -304,14 +319,20 @@ crate::multiversion! {
             let (f, rest) = rest.split_at(h);
             let (g, o) = rest.split_at(h);
             let rs = r * h..(r + 1) * h;
-            let (tc, cp, gh, gc) = (&tcs[rs.clone()], &c_prev[rs.clone()], &ghs[rs.clone()], &gcs[rs.clone()]);
-            let (dhr, dcr) = (&dhn[rs.clone()], &mut dcn[rs]);
+            let (tc, cp, gh) = (&tcs[rs.clone()], &c_prev[rs.clone()], &ghs[rs.clone()]);
+            let dcr = &mut dcn[rs.clone()];
+            if let Some(gcs) = gcs {
+                for (d, g) in dcr.iter_mut().zip(&gcs[rs.clone()]) {
+                    *d += g;
+                }
+            }
+            let dhr = &dhn[rs];
             let (di, rest) = drow.split_at_mut(h);
             let (df, rest) = rest.split_at_mut(h);
             let (dg, do_) = rest.split_at_mut(h);
             for j in 0..h {
                 let dh = gh[j] + dhr[j];
-                let dc = gc[j] + dcr[j] + dh * o[j] * (1.0 - tc[j] * tc[j]);
+                let dc = dcr[j] + dh * o[j] * (1.0 - tc[j] * tc[j]);
                 do_[j] = dh * tc[j] * o[j] * (1.0 - o[j]);
                 di[j] = dc * g[j] * i[j] * (1.0 - i[j]);
                 dg[j] = dc * i[j] * (1.0 - g[j] * g[j]);
@@ -354,33 +375,39 @@ impl CustomOp3 for LstmSeq {
                 whh_t[c * g4 + r] = whh[r * h + c];
             }
         }
-        let mut out = vec![0f32; 2 * t_len * b * h];
-        let mut acts = vec![0f32; t_len * b * g4];
-        let mut tanh_c = vec![0f32; t_len * b * h];
-        let (xp, wp, sp) = (CPtr(xg.as_ptr()), CPtr(whh_t.as_ptr()), CPtr(s0.as_ptr()));
-        let (op, ap, tp) = (
-            Ptr(out.as_mut_ptr()),
-            Ptr(acts.as_mut_ptr()),
-            Ptr(tanh_c.as_mut_ptr()),
-        );
+        let n = t_len * b * h;
+        let mut acts = xg.to_vec(); // the input projection; gates accumulate on top
+                                    // SAFETY: the recurrence writes every row of every step of these three buffers.
+        let (mut hs, mut cs, mut tanh_c) =
+            unsafe { (filled(n, |_| ()), filled(n, |_| ()), filled(n, |_| ())) };
+        let (wp, sp) = (CPtr(whh_t.as_ptr()), CPtr(s0.as_ptr()));
+        let (hp, cp) = (Ptr(hs.as_mut_ptr()), Ptr(cs.as_mut_ptr()));
+        let (ap, tp) = (Ptr(acts.as_mut_ptr()), Ptr(tanh_c.as_mut_ptr()));
         let ranges = threads::split(b, self.threads);
         if ranges.len() <= 1 {
             // SAFETY: buffers sized above; one thread.
-            unsafe { self.forward_lanes(0, b, xp, wp, sp, op, ap, tp) };
+            unsafe { self.forward_lanes(0, b, wp, sp, hp, cp, ap, tp) };
         } else {
             std::thread::scope(|s| {
                 for r in ranges {
                     // SAFETY: each thread writes only rows of its own lanes.
                     s.spawn(move || unsafe {
-                        self.forward_lanes(r.start, r.end, xp, wp, sp, op, ap, tp)
+                        self.forward_lanes(r.start, r.end, wp, sp, hp, cp, ap, tp)
                     });
                 }
             });
         }
+        let (out, shape) = if self.full {
+            hs.extend_from_slice(&cs);
+            (hs, Shape::from((2, t_len, b, h)))
+        } else {
+            (hs, Shape::from((t_len, b, h)))
+        };
         if self.save {
-            *self.saved.lock().expect("fused lstm cache poisoned") = Some(Saved { acts, tanh_c });
+            *self.saved.lock().expect("fused lstm cache poisoned") =
+                Some(Saved { acts, tanh_c, cs });
         }
-        Ok((CpuStorage::F32(out), Shape::from((2, t_len, b, h))))
+        Ok((CpuStorage::F32(out), shape))
     }
 
     fn bwd(
@@ -397,9 +424,16 @@ impl CustomOp3 for LstmSeq {
         let Some(saved) = guard.as_ref() else {
             bail!("fused lstm: backward called on a forward run without gradient")
         };
-        let mut dxg = vec![0f32; t_len * b * g4];
-        let mut ds0 = vec![0f32; 2 * b * h];
-        let mut dwhh = vec![0f32; g4 * h];
+        // SAFETY: the backward recurrence writes every row of dxg and ds0; the first dW
+        // matmul overwrites all of dwhh.
+        let (mut dxg, mut ds0, mut dwhh) = unsafe {
+            (
+                filled(t_len * b * g4, |_| ()),
+                filled(2 * b * h, |_| ()),
+                filled(g4 * h, |_| ()),
+            )
+        };
+        let full = self.full;
         let nthreads = self.threads;
         with_f32(w_hh, |whh| {
             with_f32(state0, |s0| {
@@ -407,23 +441,28 @@ impl CustomOp3 for LstmSeq {
                     with_f32(grad_res, |gout| {
                         let wp = CPtr(whh.as_ptr());
                         let sp = CPtr(s0.as_ptr());
-                        let op = CPtr(out.as_ptr());
+                        // h is the first [T, B, H] block of the output in both modes
+                        let cp = CPtr(saved.cs.as_ptr());
                         let ap = CPtr(saved.acts.as_ptr());
                         let tp = CPtr(saved.tanh_c.as_ptr());
                         let gp = CPtr(gout.as_ptr());
+                        // SAFETY: in full mode the gradient holds [2, T, B, H].
+                        let gcp = full.then(|| CPtr(unsafe { gout.as_ptr().add(t_len * b * h) }));
                         let dp = Ptr(dxg.as_mut_ptr());
                         let dsp = Ptr(ds0.as_mut_ptr());
                         let ranges = threads::split(b, nthreads);
                         if ranges.len() <= 1 {
                             // SAFETY: buffers sized above; one thread.
-                            unsafe { self.backward_lanes(0, b, wp, sp, op, ap, tp, gp, dp, dsp) };
+                            unsafe {
+                                self.backward_lanes(0, b, wp, sp, cp, ap, tp, gp, gcp, dp, dsp)
+                            };
                         } else {
                             std::thread::scope(|s| {
                                 for r in ranges {
                                     // SAFETY: each thread writes only rows of its own lanes.
                                     s.spawn(move || unsafe {
                                         self.backward_lanes(
-                                            r.start, r.end, wp, sp, op, ap, tp, gp, dp, dsp,
+                                            r.start, r.end, wp, sp, cp, ap, tp, gp, gcp, dp, dsp,
                                         )
                                     });
                                 }
@@ -494,7 +533,23 @@ pub fn lstm_sequence(
     state0: &Tensor,
     steps: usize,
 ) -> crate::Result<Tensor> {
-    run(xg, w_hh, state0, steps, true)
+    Ok(run(xg, w_hh, state0, steps, true, true)?.0)
+}
+
+/// The learner's path: the fused LSTM with gradient support, returning only the hidden
+/// states `[steps, batch, H]` as the graph output (so the backward pass carries no cell
+/// gradient), plus the cell states `[steps, batch, H]` as a detached tensor.
+pub fn lstm_hidden(
+    xg: &Tensor,
+    w_hh: &Tensor,
+    state0: &Tensor,
+    steps: usize,
+) -> crate::Result<(Tensor, Tensor)> {
+    let (hs, saved) = run(xg, w_hh, state0, steps, true, false)?;
+    let guard = saved.lock().expect("fused lstm cache poisoned");
+    let cs = guard.as_ref().map(|s| s.cs.clone()).unwrap_or_default();
+    let cells = Tensor::from_vec(cs, hs.dims(), hs.device())?;
+    Ok((hs, cells))
 }
 
 /// As [`lstm_sequence`], without recording the op for backward (burn-in, target network).
@@ -504,7 +559,7 @@ pub fn lstm_sequence_no_grad(
     state0: &Tensor,
     steps: usize,
 ) -> crate::Result<Tensor> {
-    run(xg, w_hh, state0, steps, false)
+    Ok(run(xg, w_hh, state0, steps, false, true)?.0)
 }
 
 fn run(
@@ -513,7 +568,8 @@ fn run(
     state0: &Tensor,
     steps: usize,
     grad: bool,
-) -> crate::Result<Tensor> {
+    full: bool,
+) -> crate::Result<(Tensor, std::sync::Arc<Mutex<Option<Saved>>>)> {
     let (g4, h) = w_hh.dims2()?;
     if g4 != 4 * h {
         return Err(crate::Error::shape(
@@ -544,15 +600,18 @@ fn run(
         hidden: h,
         threads: threads::threads(),
         save: grad,
-        saved: Mutex::new(None),
+        full,
+        saved: Default::default(),
     };
+    let saved = op.saved.clone();
     let (xg, w_hh, state0) = (xg.contiguous()?, w_hh.contiguous()?, state0.contiguous()?);
-    Ok(if grad {
+    let out = if grad {
         xg.apply_op3(&w_hh, &state0, op)?
     } else {
         xg.detach()
             .apply_op3_no_bwd(&w_hh.detach(), &state0.detach(), &op)?
-    })
+    };
+    Ok((out, saved))
 }
 
 /// The same recurrence built from plain candle ops, step by step: the slow twin the fused
@@ -623,7 +682,8 @@ mod tests {
             hidden: h,
             threads,
             save: true,
-            saved: Mutex::new(None),
+            full: true,
+            saved: Default::default(),
         };
         let fused = xg
             .as_tensor()
@@ -669,6 +729,39 @@ mod tests {
     #[test]
     fn fused_matches_autograd_split_batch() {
         check_against_autograd(6, 5, 16, 3);
+    }
+
+    // The learner's hidden-only path against candle autograd of the op-built cell.
+    #[test]
+    fn hidden_only_path_matches_autograd() {
+        let (t_len, b, h) = (5, 4, 8);
+        let xg = Var::from_tensor(&rand_tensor(&[t_len * b, 4 * h], 1.5, 11)).unwrap();
+        let whh = Var::from_tensor(&rand_tensor(&[4 * h, h], 0.4, 12)).unwrap();
+        let s0 = Var::from_tensor(&rand_tensor(&[2, b, h], 0.5, 13)).unwrap();
+        let wout = rand_tensor(&[t_len, b, h], 1.0, 14);
+        let (hs, cells) =
+            lstm_hidden(xg.as_tensor(), whh.as_tensor(), s0.as_tensor(), t_len).unwrap();
+        let refd = lstm_sequence_reference(xg.as_tensor(), whh.as_tensor(), s0.as_tensor(), t_len)
+            .unwrap();
+        assert!(rel_err(&hs, &refd.get(0).unwrap()) < 1e-5);
+        assert!(rel_err(&cells, &refd.get(1).unwrap()) < 1e-5);
+        let gf = (hs * &wout).unwrap().sum_all().unwrap().backward().unwrap();
+        let gr = (refd.get(0).unwrap() * &wout)
+            .unwrap()
+            .sum_all()
+            .unwrap()
+            .backward()
+            .unwrap();
+        for (name, v) in [("xg", &xg), ("w_hh", &whh), ("state0", &s0)] {
+            let e = rel_err(
+                gf.get(v.as_tensor()).unwrap(),
+                gr.get(v.as_tensor()).unwrap(),
+            );
+            assert!(
+                e < 1e-5,
+                "gradient of {name} differs from candle autograd: {e}"
+            );
+        }
     }
 
     #[test]

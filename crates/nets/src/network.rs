@@ -642,13 +642,20 @@ impl Network {
                 let boundary = to_lane_major(&state)?;
                 let x = self.memory_input(input, burn_in, t, grad)?;
                 let xg = affine(&x, &param(&m.w_ih, grad), &param(&m.b, grad))?;
-                let out = if grad {
-                    lstm::lstm_sequence(&xg, m.w_hh.as_tensor(), &state, learned)?
+                let (hs, cells) = if grad {
+                    lstm::lstm_hidden(&xg, m.w_hh.as_tensor(), &state, learned)?
                 } else {
-                    lstm::lstm_sequence_no_grad(&xg, &m.w_hh.as_detached_tensor(), &state, learned)?
+                    let out = lstm::lstm_sequence_no_grad(
+                        &xg,
+                        &m.w_hh.as_detached_tensor(),
+                        &state,
+                        learned,
+                    )?;
+                    (out.get(0)?, out.get(1)?)
                 };
-                let hs = out.get(0)?.reshape((learned * b, h))?;
-                (hs, Some(out.detach()), boundary)
+                let states = Tensor::stack(&[hs.detach(), cells], 0)?;
+                let hs = hs.reshape((learned * b, h))?;
+                (hs, Some(states), boundary)
             }
         };
         let q = self.head_forward(&features, grad)?; // [L*B, A(, N)]
