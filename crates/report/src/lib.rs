@@ -5,11 +5,13 @@
 //! - [`stats`]: IQM, stratified bootstrap intervals, probability of improvement, Welch's t.
 //! - [`runs`]: reading `metrics.jsonl` into learning curves; [`runs::RunRecord`].
 //! - [`compare`]: the per-variant report and its markdown, text and JSON forms.
+//! - [`plot`]: learning curves and final-score interval plots, as SVG and PNG.
 //! - [`error`]: the crate's [`Error`].
 #![deny(missing_docs)]
 
 pub mod compare;
 pub mod error;
+pub mod plot;
 pub mod runs;
 pub mod stats;
 
