@@ -158,6 +158,9 @@ pub struct TrainOptions {
     pub stop: Arc<AtomicBool>,
     /// The spec's text as resolved TOML (stored in the run folder and checkpoints).
     pub spec_toml: String,
+    /// Start the run in exactly this folder (which must not hold a run yet) instead of
+    /// a fresh `<run.out>/<name>/seed<seed>-<n>` (`mnemon compare` names its own).
+    pub run_dir: Option<PathBuf>,
 }
 
 fn recent(eps: &[EpisodeSummary]) -> (Option<f64>, Option<f64>) {
@@ -191,12 +194,15 @@ pub fn train(spec: &Spec, options: TrainOptions, observer: &mut dyn Observer) ->
     // Run folder and learner: fresh, or from the last checkpoint.
     let (mut run, mut learner, mut counters) = match &options.resume {
         None => {
-            let run = RunDir::create(
-                Path::new(&spec.run.out),
-                &spec.name,
-                seed,
-                &options.spec_toml,
-            )?;
+            let run = match &options.run_dir {
+                Some(dir) => RunDir::create_at(dir.clone(), &options.spec_toml)?,
+                None => RunDir::create(
+                    Path::new(&spec.run.out),
+                    &spec.name,
+                    seed,
+                    &options.spec_toml,
+                )?,
+            };
             let learner = Learner::new(spec, shape)?;
             (run, learner, Counters::default())
         }

@@ -80,6 +80,7 @@ fn run(memory: Memory, seed: u64) -> (f64, u64) {
         resume: None,
         stop: Arc::new(AtomicBool::new(false)),
         spec_toml: String::new(),
+        run_dir: None,
     };
     let summary = train(&spec, options, &mut Silent).expect("training runs");
     let ckpt = mnemon_engine::learner::load_params(&summary.checkpoint).expect("checkpoint loads");
