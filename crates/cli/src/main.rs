@@ -1,7 +1,8 @@
 //! The `mnemon` binary: argument parsing (clap), dispatch to one function per command,
 //! and the single place where outcomes become exit codes and messages.
 //!
-//! Exit codes: 0 ok, 2 bad input (spec, arguments, files), 1 internal failure.
+//! Exit codes: 0 ok, 2 bad input (spec, arguments, files), 1 internal failure, 130
+//! interrupted (Ctrl-C) with the work saved.
 
 use std::process::ExitCode;
 
@@ -9,6 +10,7 @@ use clap::{Parser, Subcommand};
 
 mod bench;
 mod check;
+mod compare;
 mod explain;
 mod inspect;
 mod tasks;
@@ -29,6 +31,8 @@ enum Command {
     Train(train::TrainArgs),
     /// Score a checkpoint over evaluation episodes.
     Eval(train::EvalArgs),
+    /// Train variants of a spec over seeds and report which is better, with intervals.
+    Compare(compare::CompareArgs),
     /// Validate spec files and print every problem found (exit 2 if any).
     Check(check::CheckArgs),
     /// Print the resolved spec with each value's origin and doc.
@@ -46,6 +50,7 @@ fn run(command: Command) -> Result<(), Failure> {
     match command {
         Command::Train(a) => train::run_train(a),
         Command::Eval(a) => train::run_eval(a),
+        Command::Compare(a) => compare::run_compare(a),
         Command::Check(a) => check::run_check(a),
         Command::Explain(a) => explain::run_explain(a),
         Command::Inspect(a) => inspect::run_inspect(a),
@@ -61,6 +66,8 @@ pub enum Failure {
     BadInput(String),
     /// Something inside mnemon failed.
     Internal(anyhow::Error),
+    /// The user interrupted (Ctrl-C) after the work was saved; the message is printed.
+    Interrupted,
 }
 
 impl From<anyhow::Error> for Failure {
@@ -114,5 +121,6 @@ fn main() -> ExitCode {
             eprintln!("mnemon: internal error: {e:#}");
             ExitCode::from(1)
         }
+        Err(Failure::Interrupted) => ExitCode::from(130),
     }
 }

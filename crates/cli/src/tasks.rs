@@ -115,7 +115,7 @@ pub fn run(args: TasksArgs) -> Result<(), Failure> {
     }
 }
 
-fn show(v: &Value) -> String {
+pub(crate) fn show(v: &Value) -> String {
     match v {
         Value::Int(i) => i.to_string(),
         Value::Float(f) => format!("{f:?}"),
