@@ -157,6 +157,7 @@ pub fn run_train(args: TrainArgs) -> Result<(), Failure> {
         resume: args.resume.clone(),
         stop,
         spec_toml,
+        run_dir: None,
     };
     let summary = if args.quiet || args.json {
         train(&spec, options, &mut Silent)
@@ -256,6 +257,7 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
     let report = evaluate(&spec.task, &spec.agent, &loaded.params, &setup)
         .map_err(|e| Failure::BadInput(format!("mnemon: task failed: {e}")))?;
     let (lo, hi) = report.ci95();
+    let optimum = exact_optimum(&spec);
     if args.json {
         println!(
             "{}",
@@ -268,6 +270,7 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
                 "mean_discounted_return": report.mean_discounted(),
                 "success_rate": report.success_rate(),
                 "mean_length": report.mean_length(),
+                "optimum_discounted_return": optimum,
                 "seed": args.seed,
                 "epsilon": args.epsilon,
             })
@@ -289,10 +292,31 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
             report.mean_discounted(),
             spec.learn.discount
         );
+        if let Some(opt) = optimum {
+            println!(
+                "optimum      {opt:.4}  (exact discounted optimum by belief-space dynamic programming; the agent reaches {:.1}% of it)",
+                100.0 * report.mean_discounted() / opt
+            );
+        }
         if let Some(s) = report.success_rate() {
             println!("success      {:.1}%", s * 100.0);
         }
         println!("length       {:.1} steps", report.mean_length());
     }
     Ok(())
+}
+
+/// The exact optimal discounted return of the spec's task, where mnemon can compute it
+/// (the Tiger problem, by belief-space dynamic programming).
+fn exact_optimum(spec: &Spec) -> Option<f64> {
+    if spec.task.kind != "tiger" {
+        return None;
+    }
+    let t = &spec.task;
+    Some(mnemon_envs::tiger::optimal_value(
+        t.int("horizon")? as usize,
+        spec.learn.discount,
+        t.float("listen_accuracy")?,
+        t.bool("end_on_open")?,
+    ))
 }
