@@ -108,3 +108,43 @@ fn a_killed_run_resumes_from_its_last_checkpoint() {
         );
     }
 }
+
+#[test]
+fn resuming_a_run_that_used_its_budget_says_how_to_extend_it() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = tmp.path().display().to_string();
+    let done = mnemon()
+        .args(["train", &spec_path(), "--quiet"])
+        .args(["--set", &format!("run.out=\"{out}\"")])
+        .args(["--set", "run.budget=3000", "--set", "learn.warmup=500"])
+        .output()
+        .unwrap();
+    assert!(
+        done.status.success(),
+        "{}",
+        String::from_utf8_lossy(&done.stderr)
+    );
+    let run = tmp.path().join("tmaze-none/seed1-001");
+    let again = mnemon()
+        .args(["train", "--quiet", "--resume"])
+        .arg(&run)
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&again.stderr);
+    assert_eq!(again.status.code(), Some(2), "{stderr}");
+    assert!(
+        stderr.contains("used its budget") && stderr.contains("run.budget"),
+        "{stderr}"
+    );
+    let more = mnemon()
+        .args(["train", "--quiet", "--resume"])
+        .arg(&run)
+        .args(["--set", "run.budget=5000"])
+        .output()
+        .unwrap();
+    assert!(
+        more.status.success(),
+        "{}",
+        String::from_utf8_lossy(&more.stderr)
+    );
+}

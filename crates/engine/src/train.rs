@@ -211,6 +211,16 @@ pub fn train(spec: &Spec, options: TrainOptions, observer: &mut dyn Observer) ->
                 Error::Input(format!("{}: no checkpoint to resume from", dir.display()))
             })?;
             let (learner, meta) = Learner::resume(spec, shape, &ckpt)?;
+            if let Budget::Steps(n) = spec.run.budget {
+                if meta.env_steps >= n {
+                    return Err(Error::Input(format!(
+                        "{}: this run has used its budget ({} of {n} env steps); to go on, \
+                         raise it: --set run.budget=...",
+                        dir.display(),
+                        meta.env_steps
+                    )));
+                }
+            }
             let run = RunDir::open(dir.clone())?;
             (run, learner, Counters::from_meta(&meta))
         }
