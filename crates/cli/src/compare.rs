@@ -466,7 +466,7 @@ fn train_all(
     );
     overall.set_position(reused as u64);
     let next = AtomicUsize::new(0);
-    let failures: Mutex<Vec<String>> = Mutex::new(Vec::new());
+    let failures: Mutex<Vec<(String, bool)>> = Mutex::new(Vec::new());
     let done = AtomicUsize::new(reused);
     std::thread::scope(|scope| {
         for _ in 0..parallel.min(todo.len()) {
@@ -521,7 +521,7 @@ fn train_all(
                     Err(e) => failures
                         .lock()
                         .expect("no panics while held")
-                        .push(format!("{name} ({}): {e}", p.dir.display())),
+                        .push((format!("{name} ({}): {e}", p.dir.display()), e.is_input())),
                 }
             });
         }
@@ -529,11 +529,18 @@ fn train_all(
     overall.finish_and_clear();
     let failures = failures.into_inner().expect("no panics while held");
     if !failures.is_empty() {
-        return Err(Failure::BadInput(format!(
+        let text = format!(
             "mnemon compare: {} run(s) failed:\n  {}\nfix the cause and run the same command again: finished runs are kept",
             failures.len(),
-            failures.join("\n  ")
-        )));
+            failures.iter().map(|(m, _)| m.as_str()).collect::<Vec<_>>().join("\n  ")
+        );
+        // Bad input (a task that fails, a spec problem) exits 2; a failure inside a
+        // run (a non-finite loss) exits 1.
+        return Err(if failures.iter().all(|(_, input)| *input) {
+            Failure::BadInput(text)
+        } else {
+            Failure::Internal(anyhow::anyhow!(text))
+        });
     }
     Ok(done.into_inner())
 }
