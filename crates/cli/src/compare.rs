@@ -552,13 +552,7 @@ struct RunBar {
 
 impl Observer for RunBar {
     fn progress(&mut self, p: &Progress) {
-        if let Some(n) = p.budget_steps {
-            self.bar.set_length(n);
-            self.bar.set_position(p.env_steps.min(n));
-        } else if let Some(s) = p.budget_seconds {
-            self.bar.set_length(s as u64);
-            self.bar.set_position((p.elapsed as u64).min(s as u64));
-        }
+        crate::train::show_budget(&self.bar, p);
         let eval = match p.last_eval {
             Some((r, Some(s))) => format!("greedy {r:.2} / {:.0}%", s * 100.0),
             Some((r, None)) => format!("greedy {r:.2}"),

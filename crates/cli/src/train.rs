@@ -93,15 +93,20 @@ struct Bar {
     bar: ProgressBar,
 }
 
+/// Sets a bar's length and position from the run's budget: env steps, or seconds.
+pub(crate) fn show_budget(bar: &ProgressBar, p: &Progress) {
+    if let Some(n) = p.budget_steps {
+        bar.set_length(n);
+        bar.set_position(p.env_steps.min(n));
+    } else if let Some(s) = p.budget_seconds {
+        bar.set_length(s as u64);
+        bar.set_position((p.elapsed as u64).min(s as u64));
+    }
+}
+
 impl Observer for Bar {
     fn progress(&mut self, p: &Progress) {
-        if let Some(n) = p.budget_steps {
-            self.bar.set_length(n);
-            self.bar.set_position(p.env_steps.min(n));
-        } else if let Some(s) = p.budget_seconds {
-            self.bar.set_length(s as u64);
-            self.bar.set_position((p.elapsed as u64).min(s as u64));
-        }
+        show_budget(&self.bar, p);
         let recent = match (p.recent_return, p.recent_success) {
             (Some(r), Some(s)) => format!("return {r:.2} success {:.0}%", s * 100.0),
             (Some(r), None) => format!("return {r:.2}"),
