@@ -308,7 +308,13 @@ impl Learner {
     /// One round: insert the new sequences, then update until the replay ratio is met.
     pub fn round(&mut self, sequences: Vec<Sequence>, _env_steps: u64) -> Result<LearnStats> {
         let t0 = Instant::now();
-        for s in sequences {
+        // Image observations (values in [0, 1]) are kept as bytes: a quarter of the
+        // memory, exact for the 0/1 planes of the built-in image task.
+        let compact = matches!(self.shape.obs, ObsShape::Image { .. });
+        for mut s in sequences {
+            if compact {
+                s.compact_obs();
+            }
             self.replay.insert(s);
         }
         let insert_seconds = t0.elapsed().as_secs_f64();
@@ -377,7 +383,7 @@ impl Learner {
             let mut arr = BatchArrays::default();
             for &r in rows {
                 let s = seqs[r];
-                arr.obs.extend_from_slice(&s.obs);
+                s.extend_obs(&mut arr.obs);
                 arr.prev_action.extend_from_slice(&s.prev_action);
                 arr.prev_reward.extend_from_slice(&s.prev_reward);
                 if zero_start && !s.episode_start {
@@ -576,7 +582,6 @@ fn q_discrepancy(
             return None;
         }
         probe.refresh(params).ok()?;
-        let d = s.obs_len;
         let mut out = [0.0f64; 2];
         for (k, (idx, state)) in s.probes.iter().enumerate() {
             if *idx < burn {
@@ -587,7 +592,7 @@ fn q_discrepancy(
             let prev = [s.prev_action[*idx] as usize];
             probe
                 .step(
-                    &s.obs[idx * d..(idx + 1) * d],
+                    &s.obs_at(*idx),
                     &prev,
                     &s.prev_reward[*idx..idx + 1],
                     &mut st,

@@ -28,8 +28,11 @@ pub struct Sequence {
     pub length: usize,
     /// Observation width.
     pub obs_len: usize,
-    /// Observations, `[length * obs_len]`.
+    /// Observations, `[length * obs_len]` (empty once [`Sequence::compact_obs`] moved
+    /// them to `obs_bytes`).
     pub obs: Vec<f32>,
+    /// Image observations stored as one byte per value (see [`Sequence::compact_obs`]).
+    pub obs_bytes: Vec<u8>,
     /// Previous action per entry (`NO_ACTION` at an episode's start).
     pub prev_action: Vec<u32>,
     /// Previous reward per entry.
@@ -61,6 +64,7 @@ impl Sequence {
             length,
             obs_len,
             obs: vec![0.0; length * obs_len],
+            obs_bytes: Vec::new(),
             prev_action: vec![NO_ACTION; length],
             prev_reward: vec![0.0; length],
             action: vec![0; length],
@@ -103,6 +107,45 @@ impl Sequence {
     /// Number of learnable entries.
     pub fn learnable_count(&self) -> usize {
         (0..self.len).filter(|&i| self.learnable(i)).count()
+    }
+
+    /// Stores the observations as one byte per value, round(x * 255): a quarter of
+    /// the memory. For image observations, whose values lie in [0, 1]; planes of 0 and
+    /// 1 (the built-in image task) come back exactly, other values within 1/510.
+    pub fn compact_obs(&mut self) {
+        if self.obs.is_empty() {
+            return;
+        }
+        self.obs_bytes = self
+            .obs
+            .iter()
+            .map(|&x| (x.clamp(0.0, 1.0) * 255.0).round() as u8)
+            .collect();
+        self.obs = Vec::new();
+    }
+
+    /// Appends the observations of all `length` entries to `out` as f32.
+    pub fn extend_obs(&self, out: &mut Vec<f32>) {
+        if self.obs_bytes.is_empty() {
+            out.extend_from_slice(&self.obs);
+        } else {
+            out.extend(self.obs_bytes.iter().map(|&b| b as f32 / 255.0));
+        }
+    }
+
+    /// The observation of entry `i` as f32.
+    pub fn obs_at(&self, i: usize) -> std::borrow::Cow<'_, [f32]> {
+        let span = i * self.obs_len..(i + 1) * self.obs_len;
+        if self.obs_bytes.is_empty() {
+            std::borrow::Cow::Borrowed(&self.obs[span])
+        } else {
+            std::borrow::Cow::Owned(
+                self.obs_bytes[span]
+                    .iter()
+                    .map(|&b| b as f32 / 255.0)
+                    .collect(),
+            )
+        }
     }
 }
 
@@ -377,5 +420,24 @@ mod tests {
             }
         }
         assert!(covered.iter().all(|&c| c), "{covered:?}");
+    }
+
+    #[test]
+    fn compact_observations_read_back_exactly_for_planes_and_closely_otherwise() {
+        let mut s = Sequence::empty(3, 4, 2);
+        s.push_entry(&[0.0, 1.0, 1.0, 0.0], NO_ACTION, 0.0, &[0.0, 0.0]);
+        s.push_entry(&[0.3, 0.5, 0.999, 0.001], 1, 0.5, &[0.0, 0.0]);
+        let mut before = Vec::new();
+        s.extend_obs(&mut before);
+        s.compact_obs();
+        assert!(s.obs.is_empty());
+        assert_eq!(s.obs_bytes.len(), 12, "one byte per value");
+        let mut after = Vec::new();
+        s.extend_obs(&mut after);
+        assert_eq!(&after[..4], &before[..4], "0/1 planes are exact");
+        for (a, b) in after.iter().zip(&before) {
+            assert!((a - b).abs() <= 1.0 / 510.0 + 1e-7, "{a} vs {b}");
+        }
+        assert_eq!(&s.obs_at(1)[..], &after[4..8]);
     }
 }
