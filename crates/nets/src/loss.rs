@@ -410,8 +410,8 @@ impl candle_core::CustomOp2 for QuantileHuber {
         s2: &candle_core::CpuStorage,
         l2: &candle_core::Layout,
     ) -> candle_core::Result<(candle_core::CpuStorage, candle_core::Shape)> {
-        let theta = contiguous_f32(s1, l1)?;
-        let targets = contiguous_f32(s2, l2)?;
+        let theta = crate::lstm::f32_slice(s1, l1, "quantile-huber: theta")?;
+        let targets = crate::lstm::f32_slice(s2, l2, "quantile-huber: targets")?;
         let rows = theta.len() / self.n;
         if targets.len() != rows * self.m {
             candle_core::bail!(
@@ -455,19 +455,6 @@ impl candle_core::CustomOp2 for QuantileHuber {
             Some(Tensor::from_vec(d, theta.dims(), theta.device())?),
             None,
         ))
-    }
-}
-
-fn contiguous_f32<'a>(
-    s: &'a candle_core::CpuStorage,
-    l: &candle_core::Layout,
-) -> candle_core::Result<&'a [f32]> {
-    let candle_core::CpuStorage::F32(v) = s else {
-        candle_core::bail!("quantile-huber: f32 tensors only")
-    };
-    match l.contiguous_offsets() {
-        Some((a, b)) => Ok(&v[a..b]),
-        None => candle_core::bail!("quantile-huber: contiguous tensors only"),
     }
 }
 

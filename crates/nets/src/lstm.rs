@@ -72,13 +72,19 @@ struct CPtr(*const f32);
 unsafe impl Send for CPtr {}
 unsafe impl Sync for CPtr {}
 
-fn f32_slice<'a>(s: &'a CpuStorage, l: &Layout, what: &str) -> candle_core::Result<&'a [f32]> {
+/// The contiguous f32 data of a custom op's input; `what` names it in errors
+/// (`fused lstm: w_hh must be f32`).
+pub(crate) fn f32_slice<'a>(
+    s: &'a CpuStorage,
+    l: &Layout,
+    what: &str,
+) -> candle_core::Result<&'a [f32]> {
     let CpuStorage::F32(v) = s else {
-        bail!("fused lstm: {what} must be f32")
+        bail!("{what} must be f32")
     };
     match l.contiguous_offsets() {
         Some((a, b)) => Ok(&v[a..b]),
-        None => bail!("fused lstm: {what} must be contiguous"),
+        None => bail!("{what} must be contiguous"),
     }
 }
 
@@ -91,7 +97,7 @@ pub(crate) fn with_f32<R>(t: &Tensor, f: impl FnOnce(&[f32]) -> R) -> candle_cor
     };
     let (storage, layout) = t.storage_and_layout();
     match &*storage {
-        Storage::Cpu(s) => Ok(f(f32_slice(s, layout, "tensor")?)),
+        Storage::Cpu(s) => Ok(f(f32_slice(s, layout, "mnemon-nets: tensor")?)),
         _ => bail!("mnemon-nets runs on the CPU only"),
     }
 }
@@ -359,9 +365,9 @@ impl CustomOp3 for LstmSeq {
     ) -> candle_core::Result<(CpuStorage, Shape)> {
         let (t_len, b, h) = (self.steps, self.batch, self.hidden);
         let g4 = 4 * h;
-        let xg = f32_slice(s1, l1, "input projection")?;
-        let whh = f32_slice(s2, l2, "w_hh")?;
-        let s0 = f32_slice(s3, l3, "start state")?;
+        let xg = f32_slice(s1, l1, "fused lstm: input projection")?;
+        let whh = f32_slice(s2, l2, "fused lstm: w_hh")?;
+        let s0 = f32_slice(s3, l3, "fused lstm: start state")?;
         if xg.len() != t_len * b * g4 || whh.len() != g4 * h || s0.len() != 2 * b * h {
             bail!(
                 "fused lstm: expected input projection [{}, {}], w_hh [{}, {}], start state [2, {}, {}]; got {:?}, {:?}, {:?}",
