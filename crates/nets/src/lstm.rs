@@ -35,12 +35,22 @@ struct Saved {
     cs: Vec<f32>,
 }
 
+/// Fewest lanes worth a thread of their own in the recurrence. gemm pads a per-step
+/// product's rows to its microkernel height, so a thread with few lanes costs nearly
+/// as much as one with all of them: measured with `mnemon bench learner --threads 2`,
+/// splitting B = 32 in two made the step slower (14 ms vs 11.8 ms unsplit), B = 64 was
+/// even and B = 128 faster (41 ms vs 55 ms).
+const MIN_LANES_PER_THREAD: usize = 32;
+
 /// One application of the fused LSTM to one sequence batch.
 struct LstmSeq {
     steps: usize,
     batch: usize,
     hidden: usize,
+    /// Threads of the large matmuls (the weight gradient).
     threads: usize,
+    /// Threads the batch's lanes are split over for the recurrence.
+    lane_threads: usize,
     save: bool,
     /// Output h and c (`[2, T, B, H]`) rather than h only (`[T, B, H]`).
     full: bool,
@@ -389,7 +399,7 @@ impl CustomOp3 for LstmSeq {
         let (wp, sp) = (CPtr(whh_t.as_ptr()), CPtr(s0.as_ptr()));
         let (hp, cp) = (Ptr(hs.as_mut_ptr()), Ptr(cs.as_mut_ptr()));
         let (ap, tp) = (Ptr(acts.as_mut_ptr()), Ptr(tanh_c.as_mut_ptr()));
-        let ranges = threads::split(b, self.threads);
+        let ranges = threads::split(b, self.lane_threads);
         if ranges.len() <= 1 {
             // SAFETY: buffers sized above; one thread.
             unsafe { self.forward_lanes(0, b, wp, sp, hp, cp, ap, tp) };
@@ -441,6 +451,7 @@ impl CustomOp3 for LstmSeq {
         };
         let full = self.full;
         let nthreads = self.threads;
+        let lane_threads = self.lane_threads;
         with_f32(w_hh, |whh| {
             with_f32(state0, |s0| {
                 with_f32(res, |out| {
@@ -456,7 +467,7 @@ impl CustomOp3 for LstmSeq {
                         let gcp = full.then(|| CPtr(unsafe { gout.as_ptr().add(t_len * b * h) }));
                         let dp = Ptr(dxg.as_mut_ptr());
                         let dsp = Ptr(ds0.as_mut_ptr());
-                        let ranges = threads::split(b, nthreads);
+                        let ranges = threads::split(b, lane_threads);
                         if ranges.len() <= 1 {
                             // SAFETY: buffers sized above; one thread.
                             unsafe {
@@ -605,6 +616,7 @@ fn run(
         batch: b,
         hidden: h,
         threads: threads::threads(),
+        lane_threads: threads::threads().min((b / MIN_LANES_PER_THREAD).max(1)),
         save: grad,
         full,
         saved: Default::default(),
@@ -687,6 +699,7 @@ mod tests {
             batch: b,
             hidden: h,
             threads,
+            lane_threads: threads,
             save: true,
             full: true,
             saved: Default::default(),
