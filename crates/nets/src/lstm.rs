@@ -796,4 +796,35 @@ mod tests {
             "wrong step count must be refused"
         );
     }
+
+    /// The pass without gradient (burn-in, target network) keeps nothing for a
+    /// backward: its outputs must equal the reference's over many steps, on one thread
+    /// and split over two.
+    #[test]
+    fn no_grad_pass_equals_the_reference_over_many_steps() {
+        for (b, threads) in [(5, 1), (6, 2)] {
+            let (t_len, h) = (9, 7);
+            let xg = rand_tensor(&[t_len * b, 4 * h], 1.5, 11);
+            let whh = rand_tensor(&[4 * h, h], 0.4, 12);
+            let s0 = rand_tensor(&[2, b, h], 0.5, 13);
+            let op = LstmSeq {
+                steps: t_len,
+                batch: b,
+                hidden: h,
+                threads,
+                lane_threads: threads,
+                save: false,
+                full: true,
+                saved: Default::default(),
+            };
+            let fused = xg.apply_op3_no_bwd(&whh, &s0, &op).unwrap();
+            let refd = lstm_sequence_reference(&xg, &whh, &s0, t_len).unwrap();
+            let e = rel_err(&fused, &refd);
+            assert!(e < 1e-5, "b {b}, threads {threads}: {e}");
+            assert!(
+                op.saved.lock().unwrap().is_none(),
+                "nothing kept without gradient"
+            );
+        }
+    }
 }
