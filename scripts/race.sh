@@ -7,7 +7,7 @@
 # Usage: scripts/race.sh [--length L] [--seeds "100 101 102"] [--spec SPEC] [--cap S] [--memoryless] [--set KEY=VALUE]...
 #   --set     passed on to mnemon train (e.g. --set replay.sequence=24 for L=20)
 #   PEER_PY   python with torch and numpy (default: /work/peer-venv/bin/python, else .peer-venv/bin/python)
-#   PEER      path of tmaze_peer.py (default: /work/shared/peers/tmaze_peer.py)
+#   PEER      path of tmaze_peer.py (default: ../shared/peers/tmaze_peer.py beside the repository)
 #
 # Time to target counts from process start (start-up included) to the end of the
 # evaluation that first reached success >= 0.95 (mnemon: the spec's `run.stop`; the
@@ -30,7 +30,8 @@ while [[ $# -gt 0 ]]; do
   esac
 done
 
-PEER=${PEER:-/work/shared/peers/tmaze_peer.py}
+# The peer sits in shared/ beside the repository.
+PEER=${PEER:-$PWD/../shared/peers/tmaze_peer.py}
 if [[ -z "${PEER_PY:-}" ]]; then
   if [[ -x /work/peer-venv/bin/python ]]; then PEER_PY=/work/peer-venv/bin/python
   elif [[ -x .peer-venv/bin/python ]]; then PEER_PY=.peer-venv/bin/python
