@@ -2,7 +2,7 @@
 //! scored with the same evaluation episodes and summarised with honest statistics
 //! (`mnemon-report`): a table, `report.md`, `report.json` and two plots.
 //!
-//! Layout of a comparison folder (`--out`, default `<run.out>/compare-<name>`):
+//! Layout of a comparison folder (`--out`, default `<run.out>/compare/<name>`):
 //! ```text
 //! plan.json                      the variants, seeds and run folders of the comparison
 //! runs/<variant>/seed<k>/        one ordinary run folder per variant and seed
@@ -38,7 +38,7 @@ use crate::Failure;
 /// Examples:
 ///   mnemon compare specs/compare-memory.toml
 ///   mnemon compare specs/tmaze-lstm.toml --vary 'agent.memory={kind="lstm",size=64},{kind="none"}' --seeds 1..3
-///   mnemon compare --from runs/compare-memory
+///   mnemon compare --from runs/compare/compare-memory
 #[derive(Args)]
 pub struct CompareArgs {
     /// The spec to vary (its `[vary]` axes and seeds, plus --vary and --seeds).
@@ -59,7 +59,7 @@ pub struct CompareArgs {
     /// oversubscription: cores / (actors + 1)).
     #[arg(long, value_name = "N")]
     pub parallel: Option<usize>,
-    /// The comparison folder (default: <run.out>/compare-<spec name>; with --from, the
+    /// The comparison folder (default: <run.out>/compare/<spec name>; with --from, the
     /// one folder given).
     #[arg(long, value_name = "DIR")]
     pub out: Option<PathBuf>,
@@ -124,6 +124,8 @@ pub fn run_compare(args: CompareArgs) -> Result<(), Failure> {
         ));
     };
     let plan = plan(spec_path, &args)?;
+    // Every argument is checked before the first run starts.
+    let threshold = threshold_of(&args, &plan[0].spec)?;
     let out = plan_out(&args, &plan)?;
     let stop = install_interrupt();
     let started = Instant::now();
@@ -136,13 +138,6 @@ pub fn run_compare(args: CompareArgs) -> Result<(), Failure> {
         );
         return Err(Failure::Interrupted);
     }
-    let threshold = match &args.threshold {
-        Some(t) => Some(parse_threshold(t)?),
-        None => plan[0].spec.run.stop.map(|s| match s {
-            StopWhen::Success(x) => Threshold::Success(x),
-            StopWhen::Return(x) => Threshold::Return(x),
-        }),
-    };
     let runs: Vec<(String, u64, PathBuf, Spec)> = plan
         .iter()
         .map(|p| (p.variant.clone(), p.seed, p.dir.clone(), p.spec.clone()))
@@ -153,7 +148,7 @@ pub fn run_compare(args: CompareArgs) -> Result<(), Failure> {
     Ok(())
 }
 
-/// Expands the spec into planned runs and writes `plan.json`.
+/// Expands the spec into planned runs, one folder each under the comparison folder.
 fn plan(spec_path: &Path, args: &CompareArgs) -> Result<Vec<Planned>, Failure> {
     let resolved = mnemon_spec::load(spec_path, &args.sets)
         .map_err(|e| Failure::BadInput(e.render(crate::color())))?;
@@ -165,7 +160,9 @@ fn plan(spec_path: &Path, args: &CompareArgs) -> Result<Vec<Planned>, Failure> {
     let expanded = mnemon_spec::expand_with(&resolved, &axes, seeds)
         .map_err(|e| Failure::BadInput(e.render(crate::color())))?;
     let out = args.out.clone().unwrap_or_else(|| {
-        Path::new(&resolved.spec.run.out).join(format!("compare-{}", resolved.spec.name))
+        Path::new(&resolved.spec.run.out)
+            .join("compare")
+            .join(&resolved.spec.name)
     });
     let mut used = BTreeSet::new();
     let mut slugs: Vec<(String, String)> = Vec::new();
@@ -364,6 +361,17 @@ fn parse_seeds(text: &str) -> Result<Vec<u64>, Failure> {
         return Err(bad());
     }
     Ok(seeds)
+}
+
+/// The time-to-threshold setting: `--threshold`, else the spec's stop target.
+fn threshold_of(args: &CompareArgs, spec: &Spec) -> Result<Option<Threshold>, Failure> {
+    Ok(match &args.threshold {
+        Some(t) => Some(parse_threshold(t)?),
+        None => spec.run.stop.map(|s| match s {
+            StopWhen::Success(x) => Threshold::Success(x),
+            StopWhen::Return(x) => Threshold::Return(x),
+        }),
+    })
 }
 
 fn parse_threshold(text: &str) -> Result<Threshold, Failure> {
@@ -754,13 +762,7 @@ fn report_from(args: &CompareArgs) -> Result<(), Failure> {
     }
     std::fs::create_dir_all(&out)
         .map_err(|e| Failure::BadInput(format!("{}: cannot create: {e}", out.display())))?;
-    let threshold = match &args.threshold {
-        Some(t) => Some(parse_threshold(t)?),
-        None => runs[0].3.run.stop.map(|s| match s {
-            StopWhen::Success(x) => Threshold::Success(x),
-            StopWhen::Return(x) => Threshold::Return(x),
-        }),
-    };
+    let threshold = threshold_of(args, &runs[0].3)?;
     let records = evaluate_all(&runs, args)?;
     let report = write_report(&records, &out, threshold, args)?;
     print_report(&report, &out, args, None);

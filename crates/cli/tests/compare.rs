@@ -154,12 +154,17 @@ fn bad_folders_and_arguments_are_clear_errors() {
         (vec!["--vary", "replay.burnin=1,2"], "burn_in"),
         (vec!["--threshold", "speed=3"], "--threshold"),
     ] {
+        // Arguments are checked before any training: nothing is made.
         let (o, _, stderr) = run(mnemon()
             .args(["compare", spec.to_str().unwrap(), "--out"])
             .arg(tmp.path().join("x"))
             .args(&args));
         assert_eq!(o.status.code(), Some(2), "{args:?}: {stderr}");
         assert!(stderr.contains(phrase), "{args:?}: {stderr}");
+        assert!(
+            !tmp.path().join("x/runs").exists(),
+            "{args:?}: trained before refusing"
+        );
     }
 }
 
