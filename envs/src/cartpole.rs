@@ -17,7 +17,7 @@
 
 use mnemon_spec::TaskSpec;
 
-use crate::registry::{bad_action, float_in, int_in};
+use crate::registry::{bad_action, count, real};
 use crate::rng::{Rng, NORMAL_BOUND};
 use crate::space::check_obs_len;
 use crate::{ActionSpace, Ending, ObsSpace, Outcome, Task, TaskError};
@@ -101,9 +101,9 @@ impl CartPole {
         }
     }
     pub(crate) fn from_spec(spec: &TaskSpec, positions_only: bool) -> Result<Self, TaskError> {
-        let limit = int_in(spec, "time_limit", 1, 100_000_000)? as usize;
+        let limit = count(spec, "time_limit")?;
         let noise = if positions_only {
-            float_in(spec, "noise", 0.0, 10.0)?
+            real(spec, "noise")?
         } else {
             0.0
         };

@@ -18,7 +18,7 @@ use std::collections::VecDeque;
 
 use mnemon_spec::TaskSpec;
 
-use crate::registry::{bad_action, int_in};
+use crate::registry::{bad_action, count, text};
 use crate::rng::Rng;
 use crate::space::check_obs_len;
 use crate::{ActionSpace, Ending, ObsSpace, Outcome, Task, TaskError};
@@ -225,18 +225,10 @@ impl FogGrid {
         }
     }
     pub(crate) fn from_spec(spec: &TaskSpec) -> Result<Self, TaskError> {
-        let view = int_in(spec, "view", 3, 31)? as usize;
-        if view & 1 == 0 {
-            return Err(TaskError::Setting {
-                kind: "fog-grid".into(),
-                key: "view".into(),
-                problem: format!(
-                    "{view} is even; expected an odd size so the robot is at the centre"
-                ),
-            });
-        }
-        let limit = int_in(spec, "time_limit", 1, 100_000_000)? as usize;
-        let map = Map::load(spec.str("map").unwrap_or("depot"))?;
+        // The task table keeps view odd and in 3..=31 (`mnemon_spec::tasks`).
+        let view = count(spec, "view")?;
+        let limit = count(spec, "time_limit")?;
+        let map = Map::load(text(spec, "map")?)?;
         Ok(Self::new(map, view, limit))
     }
     /// Whether bay A is the right one this episode.

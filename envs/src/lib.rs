@@ -1,7 +1,7 @@
 //! mnemon's worlds: the [`Task`] interface the engine steps, the built-in partially
 //! observable tasks, [`Lanes`] (K copies of a task stepped together with reproducible
-//! auto-reset), the registry ([`make`], [`catalogue`]) that turns a resolved
-//! `[task]` section into a running task, and tasks served by an outside process
+//! auto-reset), [`make`], which turns a `[task]` section into a running task (the
+//! kinds and their settings are the table in `mnemon_spec::tasks`), and tasks served by an outside process
 //! (see `envs/PROTOCOL.md`).
 //!
 //! Every built-in task is written so that one step allocates nothing: observations
@@ -36,5 +36,5 @@ pub mod tmaze;
 
 pub use error::{ProcessFailure, TaskError};
 pub use lanes::{episode_seed, EpisodeSummary, LaneStep, Lanes};
-pub use registry::{catalogue, make, resolve_settings, SettingInfo, SettingType, TaskInfo};
+pub use registry::make;
 pub use space::{ActionSpace, Ending, ObsSpace, Outcome, Task};

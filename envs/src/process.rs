@@ -20,7 +20,7 @@ use std::time::{Duration, Instant};
 use mnemon_spec::{TaskSpec, Value};
 use serde::Deserialize;
 
-use crate::registry::float_in;
+use crate::registry::real;
 use crate::space::check_obs_len;
 use crate::{ActionSpace, Ending, ObsSpace, Outcome, ProcessFailure, Task, TaskError};
 
@@ -149,7 +149,7 @@ impl ProcessTask {
                 problem: "expected a non-empty list: the program and its arguments".into(),
             });
         }
-        let timeout = float_in(spec, "timeout", 0.001, 86_400.0)?;
+        let timeout = real(spec, "timeout")?;
         let settings = spec
             .settings
             .get("settings")

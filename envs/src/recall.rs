@@ -11,7 +11,7 @@
 
 use mnemon_spec::TaskSpec;
 
-use crate::registry::{bad_action, int_in};
+use crate::registry::{bad_action, count};
 use crate::rng::Rng;
 use crate::space::check_obs_len;
 use crate::{ActionSpace, Ending, ObsSpace, Outcome, Task, TaskError};
@@ -40,8 +40,8 @@ impl Recall {
         }
     }
     pub(crate) fn from_spec(spec: &TaskSpec) -> Result<Self, TaskError> {
-        let s = int_in(spec, "symbols", 2, 1000)? as usize;
-        let d = int_in(spec, "distractors", 0, 1_000_000)? as usize;
+        let s = count(spec, "symbols")?;
+        let d = count(spec, "distractors")?;
         Ok(Self::new(s, d))
     }
     /// The symbol to recall this episode.

@@ -18,7 +18,7 @@ use std::collections::HashMap;
 
 use mnemon_spec::TaskSpec;
 
-use crate::registry::{bad_action, float_in, int_in};
+use crate::registry::{bad_action, count, real, switch};
 use crate::rng::Rng;
 use crate::space::check_obs_len;
 use crate::{ActionSpace, Ending, ObsSpace, Outcome, Task, TaskError};
@@ -62,13 +62,9 @@ impl Tiger {
         }
     }
     pub(crate) fn from_spec(spec: &TaskSpec) -> Result<Self, TaskError> {
-        let horizon = int_in(spec, "horizon", 1, 1_000_000)? as usize;
-        let accuracy = float_in(spec, "listen_accuracy", 0.5, 1.0)?;
-        let end_on_open = spec.bool("end_on_open").ok_or_else(|| TaskError::Setting {
-            kind: "tiger".into(),
-            key: "end_on_open".into(),
-            problem: "missing or not true/false".into(),
-        })?;
+        let horizon = count(spec, "horizon")?;
+        let accuracy = real(spec, "listen_accuracy")?;
+        let end_on_open = switch(spec, "end_on_open")?;
         Ok(Self::new(horizon, accuracy, end_on_open))
     }
     /// Whether the tiger is behind the left door now.

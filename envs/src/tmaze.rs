@@ -15,7 +15,7 @@
 
 use mnemon_spec::TaskSpec;
 
-use crate::registry::{bad_action, int_in};
+use crate::registry::{bad_action, count};
 use crate::rng::Rng;
 use crate::space::check_obs_len;
 use crate::{ActionSpace, Ending, ObsSpace, Outcome, Task, TaskError};
@@ -63,8 +63,8 @@ impl TMaze {
         }
     }
     pub(crate) fn from_spec(spec: &TaskSpec) -> Result<Self, TaskError> {
-        let length = int_in(spec, "length", 1, 100_000)? as usize;
-        let limit = int_in(spec, "time_limit", 0, 100_000_000)? as usize;
+        let length = count(spec, "length")?;
+        let limit = count(spec, "time_limit")?;
         Ok(Self::new(length, limit))
     }
     /// The effective time limit.

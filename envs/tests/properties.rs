@@ -11,7 +11,9 @@ use proptest::prelude::*;
 
 /// A random valid spec of one of the built-in kinds.
 fn any_spec() -> impl Strategy<Value = TaskSpec> {
+    // A time limit is 0 (automatic) or at least length + 2 (the task table's rule).
     let tmaze = (1i64..12, prop_oneof![Just(0i64), 1i64..60]).prop_map(|(l, t)| {
+        let t = if t == 0 { 0 } else { t.max(l + 2) };
         spec(
             "tmaze",
             [("length", Value::Int(l)), ("time_limit", Value::Int(t))],

@@ -31,6 +31,9 @@ pub fn run_check(args: CheckArgs) -> Result<(), Failure> {
     for path in &args.specs {
         match mnemon_spec::load(path, &args.sets) {
             Ok(r) => {
+                for w in &r.warnings {
+                    eprintln!("{w}");
+                }
                 let variants = match mnemon_spec::expand(&r) {
                     Ok(v) => v.len(),
                     Err(e) => {

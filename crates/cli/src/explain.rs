@@ -37,6 +37,9 @@ pub fn run_explain(args: ExplainArgs) -> Result<(), Failure> {
     };
     match mnemon_spec::load(&path, &args.sets) {
         Ok(r) => {
+            for w in &r.warnings {
+                eprintln!("{w}");
+            }
             print!("{}", mnemon_spec::explain(&r));
             Ok(())
         }

@@ -8,7 +8,9 @@ use std::time::Instant;
 
 use clap::{Args, Subcommand};
 use mnemon_envs::rng::Rng;
-use mnemon_envs::{catalogue, Ending, Lanes, SettingType, TaskError, TaskInfo};
+use mnemon_envs::{Ending, Lanes, TaskError};
+use mnemon_spec::registry::describe;
+use mnemon_spec::tasks::{self, TASK_KINDS};
 use mnemon_spec::{TaskSpec, Value};
 
 use crate::Failure;
@@ -135,13 +137,23 @@ pub(crate) fn show(v: &Value) -> String {
     }
 }
 
-/// The text of `mnemon tasks`.
+/// The text of `mnemon tasks`, from the task table in `mnemon_spec::tasks`.
 pub fn listing() -> String {
     let mut out = String::new();
-    for info in catalogue() {
-        out.push_str(&format!("{}\n  {}\n", info.kind, info.summary));
-        out.push_str(&format!("  partially observable: {}\n", info.hidden));
-        match mnemon_envs::make(&info.default_spec()) {
+    for kind in TASK_KINDS {
+        out.push_str(&format!("{}\n", kind.name));
+        match &kind.task {
+            Some(facts) => {
+                out.push_str(&format!("  {}\n", facts.summary));
+                out.push_str(&format!("  partially observable: {}\n", facts.hidden));
+            }
+            None => out.push_str(&format!("  {}\n", kind.doc)),
+        }
+        let defaults = TaskSpec {
+            kind: kind.name.to_string(),
+            settings: Default::default(),
+        };
+        match mnemon_envs::make(&defaults) {
             Ok(task) => {
                 out.push_str(&format!("  observation: {}\n", task.obs_space().describe()));
                 out.push_str(&format!(
@@ -153,21 +165,22 @@ pub fn listing() -> String {
                 out.push_str("  observation and actions: declared by the program in its hello\n")
             }
         }
-        out.push_str(&format!("  episode end: {}\n", info.time_limit));
-        out.push_str(&format!("  source: {}\n", info.source));
+        if let Some(facts) = &kind.task {
+            out.push_str(&format!("  episode end: {}\n", facts.episode_end));
+            out.push_str(&format!("  source: {}\n", facts.source));
+        }
         out.push_str("  settings:\n");
-        for s in &info.settings {
-            let default = s
-                .default
+        for f in kind.fields {
+            let default = tasks::default_value(f)
                 .as_ref()
                 .map(show)
                 .unwrap_or_else(|| "(required)".into());
             out.push_str(&format!(
                 "    {} = {}  ({}) {}\n",
-                s.name,
+                f.path,
                 default,
-                s.kind.name(),
-                s.doc
+                describe(&f.ty),
+                f.doc
             ));
         }
         out.push('\n');
@@ -175,66 +188,15 @@ pub fn listing() -> String {
     out
 }
 
-/// Parse one `--set` value according to the setting's type.
-fn parse_setting(info: &TaskInfo, key: &str, text: &str) -> Result<Value, String> {
-    let Some(s) = info.settings.iter().find(|s| s.name == key) else {
-        let names: Vec<&str> = info.settings.iter().map(|s| s.name).collect();
-        return Err(format!(
-            "--set {key}={text}: {} has no setting \"{key}\"; it has: {}",
-            info.kind,
-            names.join(", ")
-        ));
-    };
-    let bad = || format!("--set {key}={text}: expected {}", s.kind.name());
-    Ok(match s.kind {
-        SettingType::Int => Value::Int(text.parse().map_err(|_| bad())?),
-        SettingType::Float => Value::Float(text.parse().map_err(|_| bad())?),
-        SettingType::Bool => Value::Bool(text.parse().map_err(|_| bad())?),
-        SettingType::Str => Value::Str(text.to_string()),
-        SettingType::StrList => {
-            if text.trim_start().starts_with('[') {
-                let items: Vec<String> =
-                    serde_json::from_str(text).map_err(|e| format!("{}: {e}", bad()))?;
-                Value::List(items.into_iter().map(Value::Str).collect())
-            } else {
-                Value::List(
-                    text.split_whitespace()
-                        .map(|w| Value::Str(w.to_string()))
-                        .collect(),
-                )
-            }
-        }
-        SettingType::Table => {
-            let json: serde_json::Value =
-                serde_json::from_str(text).map_err(|e| format!("{} (as JSON): {e}", bad()))?;
-            from_json(&json).ok_or_else(bad)?
-        }
-    })
-}
-
-fn from_json(v: &serde_json::Value) -> Option<Value> {
-    Some(match v {
-        serde_json::Value::Bool(b) => Value::Bool(*b),
-        serde_json::Value::Number(n) => match n.as_i64() {
-            Some(i) => Value::Int(i),
-            None => Value::Float(n.as_f64()?),
-        },
-        serde_json::Value::String(s) => Value::Str(s.clone()),
-        serde_json::Value::Array(a) => Value::List(a.iter().map(from_json).collect::<Option<_>>()?),
-        serde_json::Value::Object(o) => Value::Table(
-            o.iter()
-                .map(|(k, v)| Some((k.clone(), from_json(v)?)))
-                .collect::<Option<_>>()?,
-        ),
-        serde_json::Value::Null => return None,
-    })
-}
-
-/// The task a `SPEC_OR_KIND` argument names, with `--set` values applied.
+/// The task a `SPEC_OR_KIND` argument names, with `--set` values applied: each
+/// value is read by its setting's type in the task table, then the settings are
+/// checked together and defaults filled in.
 pub fn task_spec(target: &str, sets: &[String]) -> Result<TaskSpec, Failure> {
-    let all = catalogue();
-    if let Some(info) = all.iter().find(|i| i.kind == target) {
-        let mut spec = info.default_spec();
+    if tasks::kind(target).is_ok() {
+        let mut spec = TaskSpec {
+            kind: target.to_string(),
+            settings: Default::default(),
+        };
         for set in sets {
             let Some((key, text)) = set.split_once('=') else {
                 return Err(Failure::BadInput(format!(
@@ -242,15 +204,15 @@ pub fn task_spec(target: &str, sets: &[String]) -> Result<TaskSpec, Failure> {
                 )));
             };
             let key = key.trim().strip_prefix("task.").unwrap_or(key.trim());
-            let value = parse_setting(info, key, text.trim()).map_err(Failure::BadInput)?;
+            let value = tasks::parse_setting(target, key, text.trim())
+                .map_err(|e| Failure::BadInput(format!("--set {set}: {e}")))?;
             spec.settings.insert(key.to_string(), value);
         }
-        return mnemon_envs::resolve_settings(&spec)
-            .map_err(|e| Failure::BadInput(format!("mnemon tasks: {e}")));
+        return tasks::complete(&spec).map_err(|e| Failure::BadInput(format!("mnemon tasks: {e}")));
     }
     let path = Path::new(target);
     if !path.exists() {
-        let kinds: Vec<&str> = all.iter().map(|i| i.kind).collect();
+        let kinds: Vec<&str> = TASK_KINDS.iter().map(|k| k.name).collect();
         return Err(Failure::BadInput(format!(
             "mnemon tasks: \"{target}\" is neither a task kind ({}) nor a spec file",
             kinds.join(", ")
@@ -267,7 +229,12 @@ pub fn task_spec(target: &str, sets: &[String]) -> Result<TaskSpec, Failure> {
         })
         .collect();
     match mnemon_spec::load(path, &sets) {
-        Ok(r) => Ok(r.spec.task),
+        Ok(r) => {
+            for w in &r.warnings {
+                eprintln!("{w}");
+            }
+            Ok(r.spec.task)
+        }
         Err(e) => Err(Failure::BadInput(e.render(crate::color()))),
     }
 }
@@ -501,6 +468,20 @@ mod tests {
             task_spec("no-such-task", &[]),
             Err(Failure::BadInput(_))
         ));
+        // What `tasks try` accepts, `check` accepts: both read the one task table.
+        let s = task_spec("fog-grid", &["map=aisles".into()]).ok().unwrap();
+        assert_eq!(s.str("map"), Some("aisles"));
+        let spec = "[task]\nkind = \"fog-grid\"\nmap = \"aisles\"\n";
+        assert!(mnemon_spec::load_str(spec, "aisles.toml", &[]).is_ok());
+        for bad in ["view=4", "view=33", "map=depo"] {
+            assert!(
+                matches!(
+                    task_spec("fog-grid", &[bad.into()]),
+                    Err(Failure::BadInput(_))
+                ),
+                "{bad} accepted"
+            );
+        }
     }
 
     fn try_text(

@@ -24,7 +24,7 @@ torso = { kind = "mlp", layers = [16] }
 memory = { kind = "lstm", size = 16 }
 [acting]
 lanes = 8
-refresh = 160
+round = 160
 [replay]
 sequence = 12
 overlap = 6

@@ -1,7 +1,7 @@
 //! The training loop: rounds of acting and learning, evaluation, checkpoints, metrics,
 //! stop conditions and resume.
 //!
-//! One round: every actor thread steps its lanes `refresh` env steps with the
+//! One round: every actor thread steps its lanes `acting.round` env steps with the
 //! parameters of the previous round while the learner thread inserts the previous
 //! round's sequences and trains until it has sampled `replay_ratio` transitions per
 //! inserted transition. Then the coordinator (this thread) collects both, publishes the
@@ -229,7 +229,7 @@ pub fn train(spec: &Spec, options: TrainOptions, observer: &mut dyn Observer) ->
     let actors_n = spec.acting.actors;
     let lanes_n = spec.acting.lanes;
     let rungs = actors_n * lanes_n;
-    let steps_per_round = (spec.acting.refresh as usize).div_ceil(lanes_n).max(1);
+    let steps_per_round = (spec.acting.round as usize).div_ceil(lanes_n).max(1);
 
     // Threads.
     let (learner_tx, learner_rx) = bounded::<LearnerMsg>(1);

@@ -36,7 +36,7 @@ fn tmaze_spec(memory: Memory, out: &str, seed: u64) -> Spec {
             lanes: 8,
             epsilon_base: 0.4,
             epsilon_spread: 7.0,
-            refresh: 160,
+            round: 160,
         },
         replay: ReplaySpec {
             capacity: 50_000,

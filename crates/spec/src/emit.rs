@@ -150,7 +150,7 @@ fn entries(spec: &Spec) -> Vec<(String, String, &'static str)> {
     let c = &spec.acting;
     push("acting.actors", c.actors.to_string());
     push("acting.lanes", c.lanes.to_string());
-    push("acting.refresh", c.refresh.to_string());
+    push("acting.round", c.round.to_string());
     push("acting.epsilon.base", float_text(c.epsilon_base));
     push("acting.epsilon.spread", float_text(c.epsilon_spread));
     let r = &spec.replay;

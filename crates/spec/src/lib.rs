@@ -4,8 +4,9 @@
 //! Loading goes through layers (habit 4 of STYLE.md):
 //! 1. `tree.rs` parses the text into a tree that remembers where every value came
 //!    from, follows `extends` chains and inserts `--set` overrides;
-//! 2. `resolve.rs` checks the tree against the key registry (`registry.rs`,
-//!    `tasks.rs`), fills defaults, checks rules between keys, and builds the [`Spec`];
+//! 2. `resolve/` checks the tree against the key registry (`registry.rs`, and
+//!    `tasks.rs` for task settings), fills defaults, checks rules between keys, and
+//!    assembles the [`Spec`];
 //! 3. `vary.rs` expands `[vary]` axes and seeds into concrete specs;
 //! 4. `emit.rs` writes specs back as TOML ([`to_toml`], [`explain`]) and the key
 //!    reference ([`reference_markdown`]).
@@ -86,6 +87,9 @@ pub struct Resolved {
     pub origins: BTreeMap<String, Origin>,
     /// The `[vary]` axes and seeds (empty if none).
     pub vary: Vary,
+    /// Problems that did not stop the spec from loading, like a key written under
+    /// its old name; each starts with file:line:col.
+    pub warnings: Vec<String>,
     /// The merged raw tree, kept so `[vary]` variants can be re-checked.
     pub(crate) tree: tree::Table,
     pub(crate) cx: tree::Ctx,
@@ -165,6 +169,7 @@ fn finish(
         spec: checked.spec,
         origins: checked.origins,
         vary,
+        warnings: checked.warnings,
         tree: t,
         cx,
         default_name,

@@ -185,8 +185,9 @@ pub struct ActingSpec {
     pub epsilon_base: f64,
     /// Spread of the per-actor epsilon.
     pub epsilon_spread: f64,
-    /// Env steps (per actor) between parameter pulls.
-    pub refresh: u64,
+    /// Round length: env steps each actor takes (all its lanes together) with one
+    /// set of parameters before it pulls the learner's newest (`acting.round`).
+    pub round: u64,
 }
 
 /// Where the learner's unroll starts.

@@ -112,6 +112,9 @@ pub struct Kind {
     pub doc: &'static str,
     /// Its settings.
     pub fields: &'static [Key],
+    /// For a task kind: what it offers and how `mnemon tasks` describes it (`None`
+    /// for kinds of network parts).
+    pub task: Option<crate::tasks::TaskFacts>,
 }
 
 const fn key(path: &'static str, ty: Ty, default: &'static str, doc: &'static str) -> Key {
@@ -156,6 +159,7 @@ pub const TORSO_KINDS: &[Kind] = &[
                 "activation after each layer",
             ),
         ],
+        task: None,
     },
     Kind {
         name: "conv",
@@ -198,6 +202,7 @@ pub const TORSO_KINDS: &[Kind] = &[
                 "width of the linear layer after the convs",
             ),
         ],
+        task: None,
     },
 ];
 
@@ -212,11 +217,13 @@ pub const MEMORY_KINDS: &[Kind] = &[
             "128",
             "width of the hidden and cell state",
         )],
+        task: None,
     },
     Kind {
         name: "none",
         doc: "no memory: the torso output goes straight to the head",
         fields: &[],
+        task: None,
     },
 ];
 
@@ -226,11 +233,13 @@ pub const HEAD_KINDS: &[Kind] = &[
         name: "value",
         doc: "one expected value (Q) per action",
         fields: &[],
+        task: None,
     },
     Kind {
         name: "dueling",
         doc: "dueling aggregation V + A - mean(A) (Wang et al. 2016)",
         fields: &[],
+        task: None,
     },
     Kind {
         name: "quantile",
@@ -249,6 +258,7 @@ pub const HEAD_KINDS: &[Kind] = &[
                 "threshold of the quantile Huber loss",
             ),
         ],
+        task: None,
     },
 ];
 
@@ -304,10 +314,10 @@ pub const KEYS: &[Key] = &[
         "task copies stepped together by one actor",
     ),
     key(
-        "acting.refresh",
+        "acting.round",
         int(1, BIG),
         "400",
-        "env steps of one actor between parameter pulls",
+        "round length: env steps each actor takes (all its lanes together) with one set of parameters before pulling the learner's newest",
     ),
     key(
         "acting.epsilon.base",
@@ -473,6 +483,33 @@ pub const KEYS: &[Key] = &[
         "folder under which each run gets <name>/<run-id>/",
     ),
 ];
+
+/// Keys that were renamed: `(old path, new path)`. The old path still works, with a
+/// warning that names the new one.
+pub const RENAMED: &[(&str, &str)] = &[("acting.refresh", "acting.round")];
+
+/// The new path of a renamed key.
+pub fn renamed(old: &str) -> Option<&'static str> {
+    RENAMED.iter().find(|(o, _)| *o == old).map(|(_, n)| *n)
+}
+
+/// Whether `v` lies within the bounds (and is finite).
+pub(crate) fn in_bounds(v: f64, lo: &Option<Bound>, hi: &Option<Bound>) -> bool {
+    if !v.is_finite() {
+        return false;
+    }
+    let lo_ok = match lo {
+        Some(b) if b.inclusive => v >= b.value,
+        Some(b) => v > b.value,
+        None => true,
+    };
+    let hi_ok = match hi {
+        Some(b) if b.inclusive => v <= b.value,
+        Some(b) => v < b.value,
+        None => true,
+    };
+    lo_ok && hi_ok
+}
 
 /// The key at exactly `path`.
 pub fn find(path: &str) -> Option<&'static Key> {

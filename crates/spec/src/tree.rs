@@ -142,6 +142,13 @@ impl Ctx {
         line_col(&self.sources[loc.src].0.text, loc.span.start).0
     }
 
+    /// `name:line:col` of a location (`--set` and defaults have one line).
+    pub fn place(&self, loc: &Loc) -> String {
+        let src = &self.sources[loc.src].0;
+        let (line, col) = line_col(&src.text, loc.span.start);
+        format!("{}:{line}:{col}", src.name)
+    }
+
     /// The errors so far, with the sources needed to render them.
     pub fn errors(&self) -> Errors {
         // In reading order: files first (as loaded), then --set arguments.

@@ -390,7 +390,7 @@ fn vary_expands_axes_times_seeds() {
     assert_eq!(e.diagnostics[0].file, "v.toml");
     // A bad command-line axis value is located in its own text.
     let e = expand_with(&r, &[("replay.burn_in".into(), vec!["x".into()])], None).unwrap_err();
-    assert_eq!(e.diagnostics[0].file, "--vary");
+    assert_eq!(e.diagnostics[0].file, "--vary", "{e}");
     assert_eq!(e.diagnostics[0].col, 16);
 }
 
