@@ -137,6 +137,22 @@ mod tests {
         assert!(e.contains("out of range"), "{e}");
     }
 
+    /// A spec file with just a `[task]` of these settings.
+    fn toml_of(kind: &str, settings: &[(&str, Value)]) -> String {
+        let mut text = format!("[task]\nkind = \"{kind}\"\n");
+        for (k, v) in settings {
+            let v = match v {
+                Value::Int(i) => i.to_string(),
+                Value::Float(f) => format!("{f:?}"),
+                Value::Bool(b) => b.to_string(),
+                Value::Str(s) => format!("{s:?}"),
+                other => panic!("no TOML form written for {other:?}"),
+            };
+            text.push_str(&format!("{k} = {v}\n"));
+        }
+        text
+    }
+
     /// The values of a setting worth building with: its default and the ends of
     /// its range (the largest time limits and horizons are built, not run).
     fn boundary_values(key: &Key) -> Vec<Value> {
@@ -216,6 +232,17 @@ mod tests {
                             kind.name, s
                         )
                     }
+                    // And a spec file with these settings passes `mnemon check`,
+                    // resolving to the settings envs built the task from.
+                    let text = toml_of(kind.name, &s);
+                    let loaded = mnemon_spec::load_str(&text, "t.toml", &[]).unwrap_or_else(|e| {
+                        panic!("{text}\nenvs builds it, the spec refuses:\n{e}")
+                    });
+                    assert_eq!(
+                        loaded.spec.task,
+                        tasks::complete(&spec_with(kind.name, &s)).unwrap(),
+                        "{text}"
+                    );
                 }
             }
         }

@@ -68,6 +68,9 @@ pub struct EvalArgs {
 pub(crate) fn load_spec(path: &Path, sets: &[String]) -> Result<(Spec, String), Failure> {
     match mnemon_spec::load(path, sets) {
         Ok(r) => {
+            for w in &r.warnings {
+                eprintln!("{w}");
+            }
             let text = mnemon_spec::to_toml(&r.spec);
             Ok((r.spec, text))
         }

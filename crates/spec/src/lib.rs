@@ -165,11 +165,12 @@ fn finish(
     if !cx.diags.is_empty() {
         return Err(cx.errors());
     }
+    let warnings = std::mem::take(&mut cx.warnings);
     let r = Resolved {
         spec: checked.spec,
         origins: checked.origins,
         vary,
-        warnings: checked.warnings,
+        warnings,
         tree: t,
         cx,
         default_name,

@@ -76,6 +76,9 @@ impl NodeV {
 pub(crate) struct Ctx {
     pub sources: Vec<(Arc<SourceText>, SrcKind)>,
     pub diags: Vec<Diagnostic>,
+    /// Problems that do not stop loading (a key under its old name), each starting
+    /// with file:line:col.
+    pub warnings: Vec<String>,
 }
 
 impl Ctx {
@@ -467,7 +470,21 @@ pub(crate) fn apply_set(cx: &mut Ctx, tree: &mut Table, src: usize) {
         start += piece.len() + 1;
     }
     let key_path: Vec<&str> = parts.iter().map(|(n, _)| n.as_str()).collect();
-    let dotted = key_path.join(".");
+    let mut dotted = key_path.join(".");
+    // A renamed key is set under its new name, so that it overrides what a file
+    // wrote under either name.
+    if let Some(new) = crate::registry::renamed(&dotted) {
+        let place = cx.place(&parts[0].1);
+        cx.warnings.push(format!(
+            "{place}: warning: `{dotted}` is the old name of `{new}`; it still works, but write --set {new}=..."
+        ));
+        parts = new
+            .split('.')
+            .enumerate()
+            .map(|(i, p)| (p.to_string(), parts.get(i).unwrap_or(&parts[0]).1.clone()))
+            .collect();
+        dotted = new.to_string();
+    }
     let last_at = parts
         .last()
         .expect("split yields one part at least")

@@ -150,14 +150,15 @@ fn variant(
     let mut t = r.tree.clone();
     t.remove("vary");
     for (axis, node) in picks {
-        let parts = axis
-            .path
+        // A renamed key is varied under its new name.
+        let path = crate::registry::renamed(&axis.path).unwrap_or(&axis.path);
+        let parts = path
             .split('.')
             .map(|p| (p.trim().to_string(), axis.key_at.clone()))
             .collect();
         let mut value = (*node).clone();
         value.key_at = axis.key_at.clone();
-        insert_path(cx, &mut t, parts, value, &axis.path);
+        insert_path(cx, &mut t, parts, value, path);
     }
     if let Some(s) = seed {
         let text = format!("run.seed={s}");

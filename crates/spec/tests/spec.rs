@@ -638,3 +638,40 @@ proptest! {
         }
     }
 }
+
+#[test]
+fn renamed_keys_still_load_with_a_warning() {
+    let old = "[task]\nkind = \"tmaze\"\n[acting]\nrefresh = 160\n";
+    let r = load_str(old, "old.toml", &[]).unwrap();
+    assert_eq!(r.spec.acting.round, 160);
+    assert_eq!(r.warnings.len(), 1, "{:?}", r.warnings);
+    assert!(
+        r.warnings[0].starts_with("old.toml:4:1: warning:")
+            && r.warnings[0].contains("`acting.round`"),
+        "{:?}",
+        r.warnings
+    );
+    assert!(r.origins.contains_key("acting.round"));
+    // A --set under the old name overrides the new name written in the file.
+    let new = "[task]\nkind = \"tmaze\"\n[acting]\nround = 160\n";
+    let r = load_str(new, "new.toml", &["acting.refresh=300".into()]).unwrap();
+    assert_eq!(r.spec.acting.round, 300);
+    assert_eq!(r.warnings.len(), 1, "{:?}", r.warnings);
+    assert!(
+        r.warnings[0].starts_with("--set:1:1: warning:"),
+        "{:?}",
+        r.warnings
+    );
+    let r = load_str(new, "new.toml", &[]).unwrap();
+    assert!(r.warnings.is_empty(), "{:?}", r.warnings);
+    assert_eq!(r.spec.acting.round, 160);
+}
+
+#[test]
+fn every_built_in_fog_grid_map_is_accepted() {
+    for map in tasks::FOG_GRID_MAPS {
+        let text = format!("[task]\nkind = \"fog-grid\"\nmap = \"{map}\"\n");
+        let r = load_str(&text, "m.toml", &[]).unwrap();
+        assert_eq!(r.spec.task.str("map"), Some(*map));
+    }
+}

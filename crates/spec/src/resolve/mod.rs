@@ -50,9 +50,6 @@ struct Located {
 pub(crate) struct Checked {
     pub spec: Spec,
     pub origins: BTreeMap<String, Origin>,
-    /// Problems that do not stop the spec from loading (a renamed key), each with
-    /// file:line:col.
-    pub warnings: Vec<String>,
 }
 
 struct Checker<'a> {
@@ -61,7 +58,6 @@ struct Checker<'a> {
     vals: BTreeMap<String, Located>,
     /// Whether the spec came from files (so map paths can be looked up).
     files: bool,
-    warnings: Vec<String>,
     /// Whether any problem was found (counted here: `Ctx` drops repeats of one
     /// problem, which a `[vary]` variant checked again would be).
     failed: bool,
@@ -78,7 +74,6 @@ pub(crate) fn check(
         cx,
         vals: BTreeMap::new(),
         files,
-        warnings: Vec::new(),
         failed: false,
     };
     c.walk(tree, "");
@@ -100,11 +95,7 @@ pub(crate) fn check(
     origins
         .entry("agent.previous_action_reward".into())
         .or_insert(Origin::Default);
-    Some(Checked {
-        spec,
-        origins,
-        warnings: c.warnings,
-    })
+    Some(Checked { spec, origins })
 }
 
 fn join(prefix: &str, k: &str) -> String {
@@ -166,7 +157,7 @@ impl Checker<'_> {
     /// A warning with the file:line:col of `at`.
     fn warn(&mut self, at: &Loc, msg: String) {
         let place = self.cx.place(at);
-        self.warnings.push(format!("{place}: warning: {msg}"));
+        self.cx.warnings.push(format!("{place}: warning: {msg}"));
     }
 
     // ---- reading checked values (`None`: absent or of another type) ----
