@@ -20,7 +20,7 @@ use std::time::{Duration, Instant};
 use mnemon_spec::{TaskSpec, Value};
 use serde::Deserialize;
 
-use crate::registry::real;
+use crate::registry::{real, strings, table};
 use crate::space::check_obs_len;
 use crate::{ActionSpace, Ending, ObsSpace, Outcome, ProcessFailure, Task, TaskError};
 
@@ -141,20 +141,11 @@ fn shorten(line: &str) -> String {
 
 impl ProcessTask {
     pub(crate) fn from_spec(spec: &TaskSpec) -> Result<Self, TaskError> {
-        let command = spec.strings("command").unwrap_or_default();
-        if command.is_empty() || command[0].is_empty() {
-            return Err(TaskError::Setting {
-                kind: "process".into(),
-                key: "command".into(),
-                problem: "expected a non-empty list: the program and its arguments".into(),
-            });
-        }
+        // The task table keeps `command` a non-empty list of strings with a program
+        // name, and fills `settings` with {} when not given.
+        let command = strings(spec, "command")?;
         let timeout = real(spec, "timeout")?;
-        let settings = spec
-            .settings
-            .get("settings")
-            .map(to_json)
-            .unwrap_or_else(|| serde_json::Value::Object(Default::default()));
+        let settings = to_json(table(spec, "settings")?);
         Self::start(&command, settings, Duration::from_secs_f64(timeout))
     }
 

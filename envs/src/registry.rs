@@ -6,7 +6,7 @@
 //! settings that are known to be present and in range.
 
 use mnemon_spec::tasks::{self, SettingError};
-use mnemon_spec::TaskSpec;
+use mnemon_spec::{TaskSpec, Value};
 
 use crate::{cartpole, fog_grid, process, recall, tiger, tmaze, Task, TaskError};
 
@@ -78,6 +78,20 @@ pub(crate) fn switch(spec: &TaskSpec, key: &str) -> Result<bool, TaskError> {
         .ok_or_else(|| missing(spec, key, "true or false"))
 }
 
+/// A list-of-text setting.
+pub(crate) fn strings(spec: &TaskSpec, key: &str) -> Result<Vec<String>, TaskError> {
+    spec.strings(key)
+        .ok_or_else(|| missing(spec, key, "a list of text"))
+}
+
+/// A table setting.
+pub(crate) fn table<'a>(spec: &'a TaskSpec, key: &str) -> Result<&'a Value, TaskError> {
+    match spec.settings.get(key) {
+        Some(v @ Value::Table(_)) => Ok(v),
+        _ => Err(missing(spec, key, "a table")),
+    }
+}
+
 /// A text setting.
 pub(crate) fn text<'a>(spec: &'a TaskSpec, key: &str) -> Result<&'a str, TaskError> {
     spec.str(key).ok_or_else(|| missing(spec, key, "text"))
@@ -98,7 +112,6 @@ mod tests {
 
     use mnemon_spec::registry::{Bound, Key, Ty};
     use mnemon_spec::tasks::{default_value, Has, FOG_GRID_MAPS, TASK_KINDS};
-    use mnemon_spec::Value;
 
     use super::*;
 
