@@ -2,7 +2,7 @@
 //! expected, plus [`Errors`], the list the loader returns. `Errors` renders every
 //! diagnostic with its source line and a marker through `annotate-snippets`.
 //!
-//! Validators elsewhere produce only messages; the loader (`resolve.rs`) attaches
+//! Validators elsewhere produce only messages; the loader (`resolve/`) attaches
 //! the location it knows (habit 5 of STYLE.md).
 
 use std::fmt;

@@ -1,6 +1,6 @@
 //! The key registry: every spec key defined once, with its dotted path, type,
 //! default, range or choices and one-line doc (habit 2 of STYLE.md). Validation
-//! (`resolve.rs`), `explain` and `docs/spec-reference.md` (`emit.rs`) all read it,
+//! (`resolve/`), `explain` and `docs/spec-reference.md` (`emit.rs`) all read it,
 //! so they cannot drift apart.
 //!
 //! Parts (`agent.torso`, `agent.memory`, `agent.head`) and the task (`task`) are

@@ -1,6 +1,6 @@
 //! The raw layer (habit 4 of STYLE.md): spec text parsed into a tree of values that
 //! remember where each came from (source and byte span), `extends` chains merged,
-//! and `--set` overrides inserted. Nothing here knows what a key means; `resolve.rs`
+//! and `--set` overrides inserted. Nothing here knows what a key means; `resolve/`
 //! checks the tree against the registry.
 
 use std::collections::BTreeMap;
