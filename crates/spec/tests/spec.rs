@@ -665,6 +665,15 @@ fn renamed_keys_still_load_with_a_warning() {
     let r = load_str(new, "new.toml", &[]).unwrap();
     assert!(r.warnings.is_empty(), "{:?}", r.warnings);
     assert_eq!(r.spec.acting.round, 160);
+    // A [vary] axis under the old name varies the new key.
+    let varied = format!("{new}[vary]\n\"acting.refresh\" = [100, 200]\n");
+    let r = load_str(&varied, "vary.toml", &[]).unwrap();
+    let rounds: Vec<u64> = expand(&r)
+        .unwrap()
+        .iter()
+        .map(|(_, s)| s.acting.round)
+        .collect();
+    assert_eq!(rounds, [100, 200]);
 }
 
 #[test]
