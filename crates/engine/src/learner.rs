@@ -844,4 +844,64 @@ mod tests {
         assert_eq!((ret.steps, ret.bootstrap), (2, Some(3)));
         assert!((ret.rewards - 1.5).abs() < 1e-12);
     }
+
+    // The learner's batch layout around the worked example of ../shared/REFERENCE.md
+    // (van Hasselt et al. 2016; Pohlen et al. 2018): rewards [1, 0, 0, 0, 1] from the
+    // first learned step of a sequence with burn-in 1, Q_online = [1, 2, 1.5] and
+    // Q_target = [0.8, 1.7, 2.2] five steps on, g = 0.997, n = 5 -> y = 2.033217439254.
+    #[test]
+    fn group_targets_read_the_worked_example_from_the_batch_layout() {
+        let text = "[task]\nkind = \"tmaze\"\n[replay]\nsequence = 8\noverlap = 2\nburn_in = 1\n\
+                    [learn]\ndiscount = 0.997\nn_step = 5\nrescale = 0.001\n";
+        let spec = mnemon_spec::load_str(text, "test.toml", &[]).unwrap().spec;
+        let dims = Dims {
+            steps: 8,
+            actions: 3,
+            quantiles: 1,
+            state_len: 0,
+            zero_start: false,
+        };
+        let other = seq_with(&[0.0; 7], None, 8);
+        let mut s = seq_with(&[9.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0], None, 8);
+        s.burn_in = 1;
+        s.action[1] = 2;
+        let seqs = [&other, &s];
+        let draws = [
+            Draw {
+                slot: 0,
+                weight: 0.5,
+            },
+            Draw {
+                slot: 1,
+                weight: 0.25,
+            },
+        ];
+        let group = Group {
+            burn: 1,
+            rows: &[1],
+            seqs: &seqs,
+            draws: &draws,
+        };
+        // Online Q of the group, [1, T - burn, A]: entry j at (j - 1) * A.
+        let mut q_online = vec![0f32; 7 * 3];
+        q_online[0..3].copy_from_slice(&[0.0, 0.0, 0.25]);
+        q_online[5 * 3..6 * 3].copy_from_slice(&[1.0, 2.0, 1.5]);
+        // Target Q of the batch, [B, T, A]: the other row holds values that must not be read.
+        let mut q_target = vec![5f32; 2 * 8 * 3];
+        q_target[(8 + 6) * 3..(8 + 7) * 3].copy_from_slice(&[0.8, 1.7, 2.2]);
+        let mut pass = ForwardPass::new(2);
+        let out = group_targets(&spec, &group, &dims, &q_online, &q_target, &mut pass);
+        let y = out.values[0] as f64;
+        assert!((y - 2.033217439254).abs() < 1e-6, "y = {y}");
+        assert_eq!((out.actions[0], out.mask[0]), (2, 1.0));
+        assert_eq!(out.weights, vec![0.25]);
+        assert_eq!(
+            out.count, 6,
+            "steps 1..=6 are learned; entry 7 only bootstraps"
+        );
+        assert_eq!(out.mask[6], 0.0);
+        assert!((pass.abs_td[1][0] as f64 - (y - 0.25)).abs() < 1e-6);
+        assert!(pass.abs_td[0].is_empty());
+        assert_eq!(pass.count, 6);
+    }
 }
