@@ -1,16 +1,22 @@
 //! The learner: owns the replay, the online and target networks and the optimizer;
-//! turns sampled sequences into n-step double-Q (or quantile) updates.
+//! turns sampled sequences into n-step double-Q (or quantile) updates. The learning math
+//! (targets, rescaling, priorities, importance weights, discrepancy, losses) lives in
+//! `mnemon_nets::loss`; this module arranges the batch around it.
 //!
-//! One update, top to bottom:
-//! 1. sample a batch of sequences by priority (`replay`);
-//! 2. unroll the target network over every step from the start state (no gradient);
-//! 3. unroll the online network: sequences that start mid-episode burn in first
-//!    (no gradient, Kapturowski et al. 2019), sequences that start at their episode's
-//!    first step are learned from step 0 (their zero start state is exact);
-//! 4. n-step double-Q targets with value rescaling h (van Hasselt et al. 2016;
-//!    Pohlen et al. 2018), bootstrapping through time-limit truncation;
-//! 5. importance-weighted TD loss (or quantile Huber loss, Dabney et al. 2017);
-//! 6. backward, global-norm clip, Adam; new sequence priorities; target copy when due.
+//! One update (`Learner::update`), top to bottom, one function per step:
+//! 1. `sample`: a batch of sequences by priority, with importance weights (`replay`);
+//! 2. `target_q`: the target network over every step from the start state (no gradient);
+//! 3. `burn_in_groups`, `unroll_online`: the online network, per burn-in group:
+//!    sequences that start mid-episode burn in first (no gradient, Kapturowski et al.
+//!    2019), sequences that start at their episode's first step are learned from step 0
+//!    (their zero start state is exact);
+//! 4. `group_targets`: n-step double-Q targets with value rescaling h (van Hasselt et
+//!    al. 2016; Pohlen et al. 2018), bootstrapping through time-limit truncation;
+//! 5. `group_loss`: importance-weighted TD loss (or quantile Huber loss, Dabney et al.
+//!    2017); every 50 updates `group_discrepancy` measures the Q-value discrepancy;
+//! 6. `optimizer_step`: backward, global-norm clip, Adam;
+//! 7. `write_priorities`: new sequence priorities;
+//! 8. `copy_target_when_due`: target copy every `learn.target_every` updates.
 
 use std::path::Path;
 use std::sync::Arc;
@@ -24,8 +30,7 @@ use rand::rngs::StdRng;
 use rand::SeedableRng;
 
 use crate::error::{Error, Result};
-use crate::explore::argmax;
-use crate::replay::{sequence_priority, Replay};
+use crate::replay::{Draw, Replay};
 use crate::sequence::Sequence;
 
 /// The network shape a task needs.
@@ -100,42 +105,6 @@ pub struct CheckpointMeta {
     pub stopped_by: String,
 }
 
-/// h(x) when rescaling is on (eps > 0), else x.
-fn rescale(x: f64, eps: f64) -> f64 {
-    if eps > 0.0 {
-        loss::h(x, eps)
-    } else {
-        x
-    }
-}
-
-/// h^-1(y) when rescaling is on (eps > 0), else y.
-fn unscale(y: f64, eps: f64) -> f64 {
-    if eps > 0.0 {
-        loss::h_inv(y, eps)
-    } else {
-        y
-    }
-}
-
-/// Where an n-step target bootstraps from: `(reward sum, discount power k, bootstrap
-/// index or None)` for entry `t` of `seq`.
-pub fn n_step(seq: &Sequence, t: usize, n: usize, gamma: f64) -> (f64, usize, Option<usize>) {
-    let mut g = 0.0;
-    for k in 0..n {
-        let idx = t + k;
-        let last = idx + 1 >= seq.len;
-        if k > 0 && last && !(seq.has_outcome[idx] && seq.terminal[idx]) {
-            return (g, k, Some(idx));
-        }
-        g += gamma.powi(k as i32) * seq.reward[idx] as f64;
-        if seq.terminal[idx] {
-            return (g, k + 1, None);
-        }
-    }
-    (g, n, Some(t + n))
-}
-
 /// The learner's state.
 pub struct Learner {
     spec: Spec,
@@ -148,7 +117,8 @@ pub struct Learner {
     learner_steps: u64,
     sampled: u64,
     params: Arc<Params>,
-    probe: ActorNet,
+    /// Computes Q from the actors' stored states, for the Q-value discrepancy.
+    stored_state_net: ActorNet,
 }
 
 /// Weights and spec read from a checkpoint, for evaluation.
@@ -225,7 +195,7 @@ impl Learner {
             spec.replay.priority_correction,
         );
         let params = Arc::new(online.snapshot().map_err(nets)?);
-        let probe = ActorNet::from_params(&spec.agent, shape, &params).map_err(nets)?;
+        let stored_state_net = ActorNet::from_params(&spec.agent, shape, &params).map_err(nets)?;
         Ok(Learner {
             spec: spec.clone(),
             shape,
@@ -241,7 +211,7 @@ impl Learner {
             learner_steps,
             sampled: 0,
             params,
-            probe,
+            stored_state_net,
         })
     }
 
@@ -306,7 +276,7 @@ impl Learner {
     }
 
     /// One round: insert the new sequences, then update until the replay ratio is met.
-    pub fn round(&mut self, sequences: Vec<Sequence>, _env_steps: u64) -> Result<LearnStats> {
+    pub fn round(&mut self, sequences: Vec<Sequence>) -> Result<LearnStats> {
         let t0 = Instant::now();
         // Image observations (values in [0, 1]) are kept as bytes: a quarter of the
         // memory, exact for the 0/1 planes of the built-in image task.
@@ -357,13 +327,55 @@ impl Learner {
         Ok(stats)
     }
 
+    /// One learner update: sample, unroll, targets, loss, backward, optimizer step,
+    /// priorities, target copy when due.
     fn update(&mut self) -> Result<UpdateStats> {
-        let spec = &self.spec;
-        let b = spec.learn.batch;
-        let draws = self.replay.sample_weighted(b, &mut self.rng);
+        let draws = self.sample()?;
+        let pass = self.forward(&draws)?;
+        let Some(total) = pass.total_loss()? else {
+            // Nothing learnable in this batch (all burn-in): count it as sampled so the
+            // ratio controller still advances.
+            self.sampled += draws.len() as u64;
+            return Ok(UpdateStats {
+                loss: 0.0,
+                mean_q: 0.0,
+                discrepancy: pass.discrepancy,
+            });
+        };
+        let loss_v = total.to_scalar::<f32>().map_err(cerr)? as f64;
+        let mean_q = pass.q_taken_sum / pass.count as f64;
+        if !loss_v.is_finite() || !mean_q.is_finite() {
+            return Err(Error::NonFinite(format!(
+                "learner step {}: the loss became {loss_v} (mean Q {mean_q}); the update was not applied. \
+                 Lower learn.rate, set learn.clip, or keep learn.rescale on.",
+                self.learner_steps
+            )));
+        }
+        self.optimizer_step(&total)?;
+        self.sampled += pass.count as u64;
+        self.write_priorities(&draws, &pass.abs_td);
+        self.copy_target_when_due()?;
+        Ok(UpdateStats {
+            loss: loss_v,
+            mean_q,
+            discrepancy: pass.discrepancy,
+        })
+    }
+
+    /// Step 1: a batch of sequences drawn by priority, with importance weights.
+    fn sample(&mut self) -> Result<Vec<Draw>> {
+        let draws = self
+            .replay
+            .sample_weighted(self.spec.learn.batch, &mut self.rng);
         if draws.is_empty() {
             return Err(Error::Internal("replay is empty".into()));
         }
+        Ok(draws)
+    }
+
+    /// Steps 2-5 over the sampled batch: the target unroll, then per burn-in group the
+    /// online unroll, the targets, the loss (and the discrepancy when due).
+    fn forward(&mut self, draws: &[Draw]) -> Result<ForwardPass> {
         let seqs: Vec<&Sequence> = draws
             .iter()
             .map(|d| {
@@ -372,252 +384,374 @@ impl Learner {
                     .expect("sampled slots hold sequences")
             })
             .collect();
-        let t = spec.replay.sequence;
-        let a = self.shape.actions;
-        let nq = self.online.quantiles();
-        let sl = self.online.state_len();
-        let zero_start = spec.replay.start_state == StartState::Zero;
-
-        // Batch arrays over all rows.
-        let gather = |rows: &[usize]| -> BatchArrays {
-            let mut arr = BatchArrays::default();
-            for &r in rows {
-                let s = seqs[r];
-                s.extend_obs(&mut arr.obs);
-                arr.prev_action.extend_from_slice(&s.prev_action);
-                arr.prev_reward.extend_from_slice(&s.prev_reward);
-                if zero_start && !s.episode_start {
-                    arr.start.extend(std::iter::repeat_n(0.0, sl));
-                } else {
-                    arr.start.extend_from_slice(&s.start_state);
-                }
-            }
-            arr
+        let dims = Dims {
+            steps: self.spec.replay.sequence,
+            actions: self.shape.actions,
+            quantiles: self.online.quantiles(),
+            state_len: self.online.state_len(),
+            zero_start: self.spec.replay.start_state == StartState::Zero,
         };
         let all: Vec<usize> = (0..seqs.len()).collect();
-        let full = gather(&all);
-        let full_in = full.input(seqs.len(), t, sl);
-        let q_target = self.target.unroll_no_grad(&full_in).map_err(nets)?;
-        let q_target: Vec<f32> = q_target
-            .q
-            .flatten_all()
-            .and_then(|x| x.to_vec1())
-            .map_err(|e| Error::Internal(e.to_string()))?;
-        let row_t = t * a * nq; // floats per row of q_target
-
-        // Online unrolls, one per burn-in group.
-        let burns: Vec<usize> = seqs.iter().map(|s| s.burn_in.min(t - 1)).collect();
-        let mut groups: Vec<(usize, Vec<usize>)> = Vec::new();
-        for (r, &bi) in burns.iter().enumerate() {
-            match groups.iter_mut().find(|(g, _)| *g == bi) {
-                Some((_, rows)) => rows.push(r),
-                None => groups.push((bi, vec![r])),
-            }
-        }
-        let gamma = spec.learn.discount;
-        let eps = spec.learn.rescale;
-        let mut losses: Vec<Tensor> = Vec::new();
-        let mut abs_td: Vec<Vec<f32>> = vec![Vec::new(); seqs.len()];
-        let mut count = 0usize;
-        let mut q_taken_sum = 0.0f64;
-        let mut discrepancy: Option<(f64, f64)> = None;
-        let measure = self.learner_steps.is_multiple_of(50) && sl > 0;
-        for (burn, rows) in &groups {
-            let arr = gather(rows);
-            let input = arr.input(rows.len(), t, sl);
-            let out = self.online.unroll(&input, *burn).map_err(nets)?;
-            let l = t - burn;
-            let q_host: Vec<f32> = out
-                .q
-                .detach()
-                .flatten_all()
-                .and_then(|x| x.to_vec1())
-                .map_err(|e| Error::Internal(e.to_string()))?;
-            let row_o = l * a * nq;
-            let bg = rows.len();
-            let mut actions = vec![0u32; bg * l];
-            let mut targets = vec![0f32; bg * l * nq];
-            let mut mask = vec![0f32; bg * l];
-            let mut weights = vec![0f32; bg];
-            let mut group_count = 0usize;
-            for (gi, &r) in rows.iter().enumerate() {
-                let s = seqs[r];
-                weights[gi] = draws[r].weight;
-                for step in *burn..s.len {
-                    if !s.learnable(step) {
-                        continue;
-                    }
-                    let (g, k, boot) = n_step(s, step, spec.learn.n_step, gamma);
-                    let qo = |j: usize, act: usize, i: usize| {
-                        q_host[gi * row_o + ((j - burn) * a + act) * nq + i]
-                    };
-                    let qt = |j: usize, act: usize, i: usize| {
-                        q_target[r * row_t + (j * a + act) * nq + i]
-                    };
-                    let act = s.action[step] as usize;
-                    let at = gi * l + (step - burn);
-                    actions[at] = act as u32;
-                    mask[at] = 1.0;
-                    group_count += 1;
-                    let disc = gamma.powi(k as i32);
-                    let q_mean = (0..nq).map(|i| qo(step, act, i) as f64).sum::<f64>() / nq as f64;
-                    let mut y_mean = 0.0f64;
-                    for i in 0..nq {
-                        let y = match boot {
-                            None => rescale(g, eps),
-                            Some(j) => {
-                                // Double Q: the online network picks the action (mean over
-                                // quantiles), the target network values it.
-                                let means: Vec<f32> = (0..a)
-                                    .map(|x| (0..nq).map(|q| qo(j, x, q)).sum::<f32>() / nq as f32)
-                                    .collect();
-                                let best = argmax(&means);
-                                rescale(g + disc * unscale(qt(j, best, i) as f64, eps), eps)
-                            }
-                        };
-                        targets[at * nq + i] = y as f32;
-                        y_mean += y / nq as f64;
-                    }
-                    abs_td[r].push((y_mean - q_mean).abs() as f32);
-                    q_taken_sum += q_mean;
-                }
-                if measure && discrepancy.is_none() {
-                    discrepancy = q_discrepancy(
-                        &mut self.probe,
-                        &self.params,
-                        s,
-                        &q_host[gi * row_o..(gi + 1) * row_o],
-                        *burn,
-                        a,
-                        nq,
-                    );
-                }
-            }
-            if group_count == 0 {
-                continue;
-            }
-            count += group_count;
-            let dev = Device::Cpu;
-            let taken = loss::gather_actions(&out.q, &actions).map_err(nets)?;
-            let mask_t = Tensor::from_vec(mask, (bg, l), &dev).map_err(cerr)?;
-            let w = Tensor::from_vec(weights, bg, &dev).map_err(cerr)?;
-            let group_loss = match spec.agent.head {
-                Head::Quantile { kappa, .. } => {
-                    let y = Tensor::from_vec(targets, (bg, l, nq), &dev).map_err(cerr)?;
-                    loss::quantile_huber_loss(&taken, &y, &mask_t, &w, kappa).map_err(nets)?
-                }
-                _ => {
-                    let y = Tensor::from_vec(targets, (bg, l), &dev).map_err(cerr)?;
-                    loss::td_loss(&taken, &y, &mask_t, &w, spec.learn.loss).map_err(nets)?
-                }
+        let q_target = target_q(&self.target, &batch_inputs(&seqs, &all, &dims), &dims)?;
+        let measure = self.learner_steps.is_multiple_of(DISCREPANCY_EVERY) && dims.state_len > 0;
+        let mut pass = ForwardPass::new(seqs.len());
+        for (burn, rows) in burn_in_groups(&seqs, dims.steps) {
+            let group = Group {
+                burn,
+                rows: &rows,
+                seqs: &seqs,
+                draws,
             };
-            // Each group's loss is a mean over its steps; weigh by its share of steps.
-            losses.push((group_loss * group_count as f64).map_err(cerr)?);
+            let q = unroll_online(&self.online, &group, &dims)?;
+            let q_online = host(&q.detach())?;
+            let targets = group_targets(&self.spec, &group, &dims, &q_online, &q_target, &mut pass);
+            if measure && pass.discrepancy.is_none() {
+                let net = &mut self.stored_state_net;
+                pass.discrepancy = group_discrepancy(net, &self.params, &group, &q_online, &dims);
+            }
+            if targets.count > 0 {
+                let shape = (rows.len(), dims.steps - burn, dims.quantiles);
+                pass.add_loss(group_loss(&self.spec, &q, targets, shape)?)?;
+            }
         }
-        if count == 0 {
-            // Nothing learnable in this batch (all burn-in): count it as sampled so the
-            // ratio controller still advances.
-            self.sampled += seqs.len() as u64;
-            return Ok(UpdateStats {
-                loss: 0.0,
-                mean_q: 0.0,
-                discrepancy,
-            });
-        }
-        let mut total = losses[0].clone();
-        for l in &losses[1..] {
-            total = (total + l).map_err(cerr)?;
-        }
-        let total = (total / count as f64).map_err(cerr)?;
-        let loss_v = total.to_scalar::<f32>().map_err(cerr)? as f64;
-        let mean_q = q_taken_sum / count as f64;
-        if !loss_v.is_finite() || !mean_q.is_finite() {
-            return Err(Error::NonFinite(format!(
-                "learner step {}: the loss became {loss_v} (mean Q {mean_q}); the update was not applied. \
-                 Lower learn.rate, set learn.clip, or keep learn.rescale on.",
-                self.learner_steps
-            )));
-        }
-        let rate = spec.learn.rate.at(self.learner_steps);
+        Ok(pass)
+    }
+
+    /// Step 6: backward, global-norm clip and Adam at the scheduled rate.
+    fn optimizer_step(&mut self, total: &Tensor) -> Result<()> {
+        let rate = self.spec.learn.rate.at(self.learner_steps);
         let grads = total.backward().map_err(cerr)?;
         self.opt.step(&self.online, &grads, rate).map_err(nets)?;
         self.learner_steps += 1;
-        self.sampled += count as u64;
-        let eta = spec.replay.priority_mix;
+        Ok(())
+    }
+
+    /// Step 7: new priorities of the sampled sequences from their TD errors.
+    fn write_priorities(&mut self, draws: &[Draw], abs_td: &[Vec<f32>]) {
+        let eta = self.spec.replay.priority_mix;
         let updates: Vec<(usize, f64)> = draws
             .iter()
-            .zip(&abs_td)
+            .zip(abs_td)
             .filter(|(_, td)| !td.is_empty())
-            .map(|(d, td)| (d.slot, sequence_priority(td, eta)))
+            .map(|(d, td)| (d.slot, loss::sequence_priority(td, eta)))
             .collect();
         self.replay.update_priorities(&updates);
+    }
+
+    /// Step 8: the target network takes the online weights every `learn.target_every`
+    /// updates.
+    fn copy_target_when_due(&mut self) -> Result<()> {
         if self
             .learner_steps
-            .is_multiple_of(spec.learn.target_every.max(1))
+            .is_multiple_of(self.spec.learn.target_every.max(1))
         {
             self.target.copy_from(&self.online).map_err(nets)?;
         }
-        Ok(UpdateStats {
-            loss: loss_v,
-            mean_q,
-            discrepancy,
-        })
+        Ok(())
     }
 }
 
-/// Q-value discrepancy (Kapturowski et al. 2019) at the first and last learned
-/// entries of `s`: ||q(h_hat) - q(h)||_2 / |max q(h_hat)|, h the actor's stored state,
-/// h_hat the state the learner recomputed (`q_row`, the online unroll's Q of `s`).
-fn q_discrepancy(
-    probe: &mut ActorNet,
+/// Learner updates between two measurements of the Q-value discrepancy.
+const DISCREPANCY_EVERY: u64 = 50;
+
+/// Sizes of one batch's arrays.
+struct Dims {
+    /// Entries per sequence (T).
+    steps: usize,
+    /// Actions (A).
+    actions: usize,
+    /// Quantiles per action (K; 1 for the value and dueling heads).
+    quantiles: usize,
+    /// Floats of recurrent state (0 without memory).
+    state_len: usize,
+    /// Sequences that start mid-episode start from a zero state.
+    zero_start: bool,
+}
+
+impl Dims {
+    /// Floats per sequence of the online Q after `burn` burn-in entries: `[T - burn, A, K]`.
+    fn online_row(&self, burn: usize) -> usize {
+        (self.steps - burn) * self.actions * self.quantiles
+    }
+
+    /// Floats per entry of Q: `[A, K]`.
+    fn entry(&self) -> usize {
+        self.actions * self.quantiles
+    }
+}
+
+/// The sequences of one burn-in group: rows of the sampled batch that share a burn-in.
+struct Group<'a> {
+    burn: usize,
+    rows: &'a [usize],
+    seqs: &'a [&'a Sequence],
+    draws: &'a [Draw],
+}
+
+/// What the forward pass over a batch gathered.
+struct ForwardPass {
+    /// Sum over groups of each group's mean loss times its learned steps.
+    loss_sum: Option<Tensor>,
+    /// Learned steps.
+    count: usize,
+    /// Sum of the mean Q of the taken actions over learned steps.
+    q_taken_sum: f64,
+    /// |TD error| of each sampled sequence's learned steps.
+    abs_td: Vec<Vec<f32>>,
+    /// Q-value discrepancy at the first and last learned steps, when measured.
+    discrepancy: Option<(f64, f64)>,
+}
+
+impl ForwardPass {
+    fn new(batch: usize) -> Self {
+        ForwardPass {
+            loss_sum: None,
+            count: 0,
+            q_taken_sum: 0.0,
+            abs_td: vec![Vec::new(); batch],
+            discrepancy: None,
+        }
+    }
+
+    fn add_loss(&mut self, loss: Tensor) -> Result<()> {
+        self.loss_sum = Some(match self.loss_sum.take() {
+            None => loss,
+            Some(sum) => (sum + loss).map_err(cerr)?,
+        });
+        Ok(())
+    }
+
+    /// The mean loss over all learned steps, or `None` when nothing was learnable.
+    fn total_loss(&self) -> Result<Option<Tensor>> {
+        match &self.loss_sum {
+            Some(sum) if self.count > 0 => Ok(Some((sum / self.count as f64).map_err(cerr)?)),
+            _ => Ok(None),
+        }
+    }
+}
+
+/// Host arrays of one group's targets.
+struct GroupTargets {
+    /// `[G, L]` taken actions.
+    actions: Vec<u32>,
+    /// `[G, L, K]` targets.
+    values: Vec<f32>,
+    /// `[G, L]`: 1 where the step is learned.
+    mask: Vec<f32>,
+    /// `[G]` importance weights.
+    weights: Vec<f32>,
+    /// Learned steps.
+    count: usize,
+}
+
+/// Rows of the batch grouped by burn-in, groups in order of first appearance.
+fn burn_in_groups(seqs: &[&Sequence], steps: usize) -> Vec<(usize, Vec<usize>)> {
+    let mut groups: Vec<(usize, Vec<usize>)> = Vec::new();
+    for (r, s) in seqs.iter().enumerate() {
+        let burn = s.burn_in.min(steps - 1);
+        match groups.iter_mut().find(|(g, _)| *g == burn) {
+            Some((_, rows)) => rows.push(r),
+            None => groups.push((burn, vec![r])),
+        }
+    }
+    groups
+}
+
+/// The network inputs of the sequences `rows`: observations, previous actions and
+/// rewards, start states (zero for mid-episode starts when the spec says so).
+fn batch_inputs(seqs: &[&Sequence], rows: &[usize], dims: &Dims) -> BatchArrays {
+    let mut arr = BatchArrays {
+        rows: rows.len(),
+        ..Default::default()
+    };
+    for &r in rows {
+        let s = seqs[r];
+        s.extend_obs(&mut arr.obs);
+        arr.prev_action.extend_from_slice(&s.prev_action);
+        arr.prev_reward.extend_from_slice(&s.prev_reward);
+        if dims.zero_start && !s.episode_start {
+            arr.start.extend(std::iter::repeat_n(0.0, dims.state_len));
+        } else {
+            arr.start.extend_from_slice(&s.start_state);
+        }
+    }
+    arr
+}
+
+/// Step 2: the target network's Q over every entry of the batch, from the start states,
+/// without gradient: `[B, T, A, K]` on the host.
+fn target_q(target: &Network, arr: &BatchArrays, dims: &Dims) -> Result<Vec<f32>> {
+    let out = target
+        .unroll_no_grad(&arr.input(arr.rows, dims.steps, dims.state_len))
+        .map_err(nets)?;
+    host(&out.q)
+}
+
+/// A tensor's values on the host, flattened.
+fn host(t: &Tensor) -> Result<Vec<f32>> {
+    t.flatten_all().and_then(|x| x.to_vec1()).map_err(cerr)
+}
+
+/// Step 3: the online network over one group's sequences from their start states:
+/// the burn-in entries without gradient (Kapturowski et al. 2019), then the learned
+/// entries with it. Returns Q `[G, T - burn, A, K]`.
+fn unroll_online(online: &Network, group: &Group<'_>, dims: &Dims) -> Result<Tensor> {
+    let input = batch_inputs(group.seqs, group.rows, dims);
+    let out = online
+        .unroll(
+            &input.input(input.rows, dims.steps, dims.state_len),
+            group.burn,
+        )
+        .map_err(nets)?;
+    Ok(out.q)
+}
+
+/// The view of a sequence's outcomes that the n-step return reads.
+fn outcomes(s: &Sequence) -> loss::Outcomes<'_> {
+    loss::Outcomes {
+        len: s.len,
+        reward: &s.reward,
+        terminal: &s.terminal,
+        has_outcome: &s.has_outcome,
+    }
+}
+
+/// Step 4: n-step double-Q targets of one group's learned steps. `q_online` `[G, T -
+/// burn, A, K]`, `q_target` `[B, T, A, K]`. Adds each step's |TD error| (targets and Q
+/// averaged over quantiles) and taken-action Q to `pass`.
+fn group_targets(
+    spec: &Spec,
+    group: &Group<'_>,
+    dims: &Dims,
+    q_online: &[f32],
+    q_target: &[f32],
+    pass: &mut ForwardPass,
+) -> GroupTargets {
+    let (burn, nq, entry) = (group.burn, dims.quantiles, dims.entry());
+    let (l, bg) = (dims.steps - burn, group.rows.len());
+    let (gamma, eps) = (spec.learn.discount, spec.learn.rescale);
+    let mut out = GroupTargets {
+        actions: vec![0u32; bg * l],
+        values: vec![0f32; bg * l * nq],
+        mask: vec![0f32; bg * l],
+        weights: vec![0f32; bg],
+        count: 0,
+    };
+    for (gi, &r) in group.rows.iter().enumerate() {
+        let s = group.seqs[r];
+        out.weights[gi] = group.draws[r].weight;
+        let online_at = |j: usize| &q_online[(gi * l + j - burn) * entry..][..entry];
+        let target_at = |j: usize| &q_target[(r * dims.steps + j) * entry..][..entry];
+        for step in burn..s.len {
+            if !s.learnable(step) {
+                continue;
+            }
+            let ret = loss::n_step_return(&outcomes(s), step, spec.learn.n_step, gamma);
+            let act = s.action[step] as usize;
+            let at = gi * l + (step - burn);
+            out.actions[at] = act as u32;
+            out.mask[at] = 1.0;
+            out.count += 1;
+            let taken = &online_at(step)[act * nq..(act + 1) * nq];
+            let q_mean = taken.iter().map(|&q| q as f64).sum::<f64>() / nq as f64;
+            // Double Q: the online network picks the action, the target network values it.
+            let boot = ret.bootstrap.map(|j| {
+                let best = loss::double_q_action(online_at(j), nq);
+                &target_at(j)[best * nq..(best + 1) * nq]
+            });
+            let mut y_mean = 0.0f64;
+            for i in 0..nq {
+                let y = loss::n_step_target(&ret, boot.map(|b| b[i] as f64), gamma, eps);
+                out.values[at * nq + i] = y as f32;
+                y_mean += y / nq as f64;
+            }
+            pass.abs_td[r].push((y_mean - q_mean).abs() as f32);
+            pass.q_taken_sum += q_mean;
+        }
+    }
+    pass.count += out.count;
+    out
+}
+
+/// Step 5: one group's loss (importance-weighted TD or quantile Huber) times its learned
+/// steps, so that the sum over groups divided by all learned steps is the batch mean.
+fn group_loss(
+    spec: &Spec,
+    q: &Tensor,
+    targets: GroupTargets,
+    (bg, l, nq): (usize, usize, usize),
+) -> Result<Tensor> {
+    let dev = Device::Cpu;
+    let taken = loss::gather_actions(q, &targets.actions).map_err(nets)?;
+    let mask = Tensor::from_vec(targets.mask, (bg, l), &dev).map_err(cerr)?;
+    let w = Tensor::from_vec(targets.weights, bg, &dev).map_err(cerr)?;
+    let loss = match spec.agent.head {
+        Head::Quantile { kappa, .. } => {
+            let y = Tensor::from_vec(targets.values, (bg, l, nq), &dev).map_err(cerr)?;
+            loss::quantile_huber_loss(&taken, &y, &mask, &w, kappa).map_err(nets)?
+        }
+        _ => {
+            let y = Tensor::from_vec(targets.values, (bg, l), &dev).map_err(cerr)?;
+            loss::td_loss(&taken, &y, &mask, &w, spec.learn.loss).map_err(nets)?
+        }
+    };
+    (loss * targets.count as f64).map_err(cerr)
+}
+
+/// The Q-value discrepancy of the first sequence of the group that can be measured.
+fn group_discrepancy(
+    net: &mut ActorNet,
+    params: &Params,
+    group: &Group<'_>,
+    q_online: &[f32],
+    dims: &Dims,
+) -> Option<(f64, f64)> {
+    let row = dims.online_row(group.burn);
+    group.rows.iter().enumerate().find_map(|(gi, &r)| {
+        let q_row = &q_online[gi * row..(gi + 1) * row];
+        stored_state_discrepancy(net, params, group.seqs[r], q_row, group.burn, dims)
+    })
+}
+
+/// The Q-value discrepancy of `s` at its first and last learned entries: the learner's
+/// Q there (`q_row`, the online unroll's `[T - burn, A, K]` of `s`) against the Q that
+/// `net`, refreshed to the published parameters, computes from the actor's stored state
+/// (Kapturowski et al. 2019). `None` when a measured entry lies in the burn-in.
+fn stored_state_discrepancy(
+    net: &mut ActorNet,
     params: &Params,
     s: &Sequence,
     q_row: &[f32],
     burn: usize,
-    a: usize,
-    nq: usize,
+    dims: &Dims,
 ) -> Option<(f64, f64)> {
-    {
-        if s.probes.len() != 2 {
+    if s.discrepancy_states.len() != 2 {
+        return None;
+    }
+    net.refresh(params).ok()?;
+    let (a, entry) = (dims.actions, dims.entry());
+    let mut out = [0.0f64; 2];
+    let mut q_fresh = Vec::with_capacity(a);
+    for (k, (idx, state)) in s.discrepancy_states.iter().enumerate() {
+        if *idx < burn {
             return None;
         }
-        probe.refresh(params).ok()?;
-        let mut out = [0.0f64; 2];
-        for (k, (idx, state)) in s.probes.iter().enumerate() {
-            if *idx < burn {
-                return None;
-            }
-            let mut st = state.clone();
-            let mut q_stored = vec![0f32; a];
-            let prev = [s.prev_action[*idx] as usize];
-            probe
-                .step(
-                    &s.obs_at(*idx),
-                    &prev,
-                    &s.prev_reward[*idx..idx + 1],
-                    &mut st,
-                    &mut q_stored,
-                )
-                .ok()?;
-            let q_hat: Vec<f32> = (0..a)
-                .map(|x| {
-                    (0..nq)
-                        .map(|i| q_row[((idx - burn) * a + x) * nq + i])
-                        .sum::<f32>()
-                        / nq as f32
-                })
-                .collect();
-            let diff: f64 = q_hat
-                .iter()
-                .zip(&q_stored)
-                .map(|(x, y)| ((x - y) as f64).powi(2))
-                .sum::<f64>()
-                .sqrt();
-            let scale = q_hat.iter().fold(0f32, |m, v| m.max(v.abs())).max(1e-6) as f64;
-            out[k] = diff / scale;
-        }
-        Some((out[0], out[1]))
+        let mut st = state.clone();
+        let mut q_stored = vec![0f32; a];
+        let prev = [s.prev_action[*idx] as usize];
+        net.step(
+            &s.obs_at(*idx),
+            &prev,
+            &s.prev_reward[*idx..idx + 1],
+            &mut st,
+            &mut q_stored,
+        )
+        .ok()?;
+        let at = (idx - burn) * entry;
+        loss::action_means(&q_row[at..at + entry], dims.quantiles, &mut q_fresh);
+        out[k] = loss::q_discrepancy(&q_fresh, &q_stored).ok()?;
     }
+    Some((out[0], out[1]))
 }
 
 struct UpdateStats {
@@ -626,8 +760,10 @@ struct UpdateStats {
     discrepancy: Option<(f64, f64)>,
 }
 
+/// Network inputs of a batch's rows.
 #[derive(Default)]
 struct BatchArrays {
+    rows: usize,
     obs: Vec<f32>,
     prev_action: Vec<u32>,
     prev_reward: Vec<f32>,
@@ -670,21 +806,21 @@ mod tests {
         s
     }
 
-    // n-step double-Q target with rescaling: worked example in ../shared/REFERENCE.md
-    // (van Hasselt et al. 2016; Pohlen et al. 2018), g = 0.997, n = 5, rewards [1,0,0,0,1],
-    // Q_online(s5) = [1, 2, 1.5], Q_target(s5) = [0.8, 1.7, 2.2] -> y = 2.033217439254.
+    // n-step double-Q target with rescaling, read from a stored sequence: worked example
+    // in ../shared/REFERENCE.md (van Hasselt et al. 2016; Pohlen et al. 2018), g = 0.997,
+    // n = 5, rewards [1,0,0,0,1], Q_online(s5) = [1, 2, 1.5], Q_target(s5) = [0.8, 1.7, 2.2]
+    // -> y = 2.033217439254.
     #[test]
     fn n_step_double_q_target_matches_worked_value() {
         let s = seq_with(&[1.0, 0.0, 0.0, 0.0, 1.0, 0.0], None, 7);
-        let (g, k, boot) = n_step(&s, 0, 5, 0.997);
-        assert_eq!((k, boot), (5, Some(5)));
-        assert!((g - 1.988053892081).abs() < 1e-9);
-        let online = [1.0f32, 2.0, 1.5];
+        let ret = loss::n_step_return(&outcomes(&s), 0, 5, 0.997);
+        assert_eq!((ret.steps, ret.bootstrap), (5, Some(5)));
+        assert!((ret.rewards - 1.988053892081).abs() < 1e-9);
+        let best = loss::double_q_action(&[1.0, 2.0, 1.5], 1);
         let target = [0.8f64, 1.7, 2.2];
-        let best = argmax(&online);
-        let y = rescale(g + 0.997f64.powi(5) * unscale(target[best], 1e-3), 1e-3);
+        let y = loss::n_step_target(&ret, Some(target[best]), 0.997, 1e-3);
         assert!((y - 2.033217439254).abs() < 1e-9, "{y}");
-        let plain = g + 0.997f64.powi(5) * target[best];
+        let plain = loss::n_step_target(&ret, Some(target[best]), 0.997, 0.0);
         assert!((plain - 3.662706433769).abs() < 1e-9);
     }
 
@@ -693,17 +829,79 @@ mod tests {
     #[test]
     fn terminal_stops_the_bootstrap() {
         let s = seq_with(&[1.0, 0.0, 1.0], Some(2), 3);
-        let (g, _, boot) = n_step(&s, 0, 5, 0.997);
-        assert_eq!(boot, None);
-        assert!((rescale(g, 1e-3) - 0.732314499545).abs() < 1e-9);
+        let ret = loss::n_step_return(&outcomes(&s), 0, 5, 0.997);
+        assert_eq!(ret.bootstrap, None);
+        let y = loss::n_step_target(&ret, None, 0.997, 1e-3);
+        assert!((y - 0.732314499545).abs() < 1e-9);
     }
 
+    // Pardo et al. 2018: a truncated episode bootstraps from its final observation.
     #[test]
     fn truncation_bootstraps_from_the_final_observation() {
         // Three steps with outcomes, then the final observation of a truncated episode.
         let s = seq_with(&[1.0, 1.0, 1.0], None, 4);
-        let (g, k, boot) = n_step(&s, 1, 5, 0.5);
-        assert_eq!((k, boot), (2, Some(3)));
-        assert!((g - 1.5).abs() < 1e-12);
+        let ret = loss::n_step_return(&outcomes(&s), 1, 5, 0.5);
+        assert_eq!((ret.steps, ret.bootstrap), (2, Some(3)));
+        assert!((ret.rewards - 1.5).abs() < 1e-12);
+    }
+
+    // The learner's batch layout around the worked example of ../shared/REFERENCE.md
+    // (van Hasselt et al. 2016; Pohlen et al. 2018): rewards [1, 0, 0, 0, 1] from the
+    // first learned step of a sequence with burn-in 1, Q_online = [1, 2, 1.5] and
+    // Q_target = [0.8, 1.7, 2.2] five steps on, g = 0.997, n = 5 -> y = 2.033217439254.
+    #[test]
+    fn group_targets_read_the_worked_example_from_the_batch_layout() {
+        let text = "[task]\nkind = \"tmaze\"\n[replay]\nsequence = 8\noverlap = 2\nburn_in = 1\n\
+                    [learn]\ndiscount = 0.997\nn_step = 5\nrescale = 0.001\n";
+        let spec = mnemon_spec::load_str(text, "test.toml", &[]).unwrap().spec;
+        let dims = Dims {
+            steps: 8,
+            actions: 3,
+            quantiles: 1,
+            state_len: 0,
+            zero_start: false,
+        };
+        let other = seq_with(&[0.0; 7], None, 8);
+        let mut s = seq_with(&[9.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0], None, 8);
+        s.burn_in = 1;
+        s.action[1] = 2;
+        let seqs = [&other, &s];
+        let draws = [
+            Draw {
+                slot: 0,
+                weight: 0.5,
+            },
+            Draw {
+                slot: 1,
+                weight: 0.25,
+            },
+        ];
+        let group = Group {
+            burn: 1,
+            rows: &[1],
+            seqs: &seqs,
+            draws: &draws,
+        };
+        // Online Q of the group, [1, T - burn, A]: entry j at (j - 1) * A.
+        let mut q_online = vec![0f32; 7 * 3];
+        q_online[0..3].copy_from_slice(&[0.0, 0.0, 0.25]);
+        q_online[5 * 3..6 * 3].copy_from_slice(&[1.0, 2.0, 1.5]);
+        // Target Q of the batch, [B, T, A]: the other row holds values that must not be read.
+        let mut q_target = vec![5f32; 2 * 8 * 3];
+        q_target[(8 + 6) * 3..(8 + 7) * 3].copy_from_slice(&[0.8, 1.7, 2.2]);
+        let mut pass = ForwardPass::new(2);
+        let out = group_targets(&spec, &group, &dims, &q_online, &q_target, &mut pass);
+        let y = out.values[0] as f64;
+        assert!((y - 2.033217439254).abs() < 1e-6, "y = {y}");
+        assert_eq!((out.actions[0], out.mask[0]), (2, 1.0));
+        assert_eq!(out.weights, vec![0.25]);
+        assert_eq!(
+            out.count, 6,
+            "steps 1..=6 are learned; entry 7 only bootstraps"
+        );
+        assert_eq!(out.mask[6], 0.0);
+        assert!((pass.abs_td[1][0] as f64 - (y - 0.25)).abs() < 1e-6);
+        assert!(pass.abs_td[0].is_empty());
+        assert_eq!(pass.count, 6);
     }
 }

@@ -9,12 +9,13 @@
 //! so every new sequence is sampled soon without crowding out the rest. (Entering at the
 //! largest priority ever seen, which early in a run is far above every current one,
 //! made batches almost all new sequences and stalled the T-maze at L = 10.) The per-sequence priority mixture
-//! p = eta*max|d| + (1-eta)*mean|d| is Kapturowski et al. 2019 (see `sequence_priority`).
+//! p = eta*max|d| + (1-eta)*mean|d| is Kapturowski et al. 2019 (`mnemon_nets::loss::sequence_priority`).
 //!
 //! The store is a ring: the oldest sequence leaves first. Capacity is given in
 //! transitions and turned into sequence slots at the stride of the actors' cutting
 //! (sequence - overlap), so a full store holds about `capacity` distinct transitions.
 
+use mnemon_nets::loss;
 use rand::Rng;
 
 use crate::sequence::Sequence;
@@ -79,17 +80,6 @@ impl SumTree {
         }
         node - self.leaves
     }
-}
-
-/// Priority of a sequence from its absolute TD errors: eta*max + (1-eta)*mean
-/// (Kapturowski et al. 2019). An empty slice gives 0.
-pub fn sequence_priority(abs_td: &[f32], eta: f64) -> f64 {
-    if abs_td.is_empty() {
-        return 0.0;
-    }
-    let max = abs_td.iter().fold(0f32, |m, &d| m.max(d.abs())) as f64;
-    let mean = abs_td.iter().map(|d| d.abs() as f64).sum::<f64>() / abs_td.len() as f64;
-    eta * max + (1.0 - eta) * mean
 }
 
 /// One sampled sequence: its slot, and its importance weight.
@@ -216,19 +206,18 @@ impl Replay {
         }
     }
 
-    /// Importance weights of `slots`, (N P(i))^-b normalised by their largest.
+    /// Importance weights of `slots`, (N P(i))^-b normalised by their largest
+    /// (`mnemon_nets::loss::importance_weights`).
     pub fn weights(&self, slots: &[usize]) -> Vec<f32> {
         let total = self.tree.total();
         if total <= 0.0 || self.correction == 0.0 {
             return vec![1.0; slots.len()];
         }
-        let n = self.len as f64;
-        let raw: Vec<f64> = slots
-            .iter()
-            .map(|&s| (n * self.tree.get(s) / total).powf(-self.correction))
-            .collect();
-        let max = raw.iter().cloned().fold(0.0, f64::max);
-        raw.iter().map(|w| (w / max) as f32).collect()
+        let mass: Vec<f64> = slots.iter().map(|&s| self.tree.get(s)).collect();
+        loss::importance_weights(&mass, total, self.len, self.correction)
+            .into_iter()
+            .map(|w| w as f32)
+            .collect()
     }
 
     /// Draws `count` sequences, stratified: the priority mass is cut into `count`
@@ -311,13 +300,6 @@ mod tests {
             assert!((r.probability(i) - p[i]).abs() < 1e-9, "P({i})");
             assert!((weights[i] as f64 - w[i]).abs() < 1e-6, "w({i})");
         }
-    }
-
-    // Kapturowski et al. 2019 mixture; worked value in ../shared/REFERENCE.md.
-    #[test]
-    fn sequence_priority_mixture() {
-        let p = sequence_priority(&[0.1, -0.5, 0.2, 2.0], 0.9);
-        assert!((p - 1.87).abs() < 1e-6, "{p}");
     }
 
     #[test]

@@ -51,7 +51,7 @@ pub struct Sequence {
     pub episode_start: bool,
     /// Actor states before the first and last learned entries (index, state), for the
     /// Q-value discrepancy diagnostic.
-    pub probes: Vec<(usize, Vec<f32>)>,
+    pub discrepancy_states: Vec<(usize, Vec<f32>)>,
     /// Leading entries used only to warm the state.
     pub burn_in: usize,
 }
@@ -73,7 +73,7 @@ impl Sequence {
             has_outcome: vec![false; length],
             start_state: vec![0.0; state_len],
             episode_start: false,
-            probes: Vec::new(),
+            discrepancy_states: Vec::new(),
             burn_in: 0,
         }
     }
@@ -271,7 +271,7 @@ impl Cutter {
         let (Some(&first), Some(&last)) = (learned.first(), learned.last()) else {
             return;
         };
-        seq.probes = vec![
+        seq.discrepancy_states = vec![
             (first, self.entries[first].state.clone()),
             (last, self.entries[last].state.clone()),
         ];
@@ -362,8 +362,8 @@ mod tests {
         assert_eq!(out[1].burn_in, 3);
         // A full mid-episode sequence: entries 3..=6 learnable (burn-in 0..3, last is bootstrap).
         assert_eq!(out[1].learnable_count(), 4);
-        assert_eq!(out[1].probes[0], (3, vec![70.0]));
-        assert_eq!(out[1].probes[1], (6, vec![100.0]));
+        assert_eq!(out[1].discrepancy_states[0], (3, vec![70.0]));
+        assert_eq!(out[1].discrepancy_states[1], (6, vec![100.0]));
         // Every step of the episode is learnable in at least one sequence.
         let mut covered = [false; 20];
         for s in &out {

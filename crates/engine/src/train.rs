@@ -133,7 +133,6 @@ enum ActorMsg {
 enum LearnerMsg {
     Round {
         sequences: Vec<crate::sequence::Sequence>,
-        env_steps: u64,
     },
     Save {
         path: PathBuf,
@@ -289,10 +288,7 @@ pub fn train(spec: &Spec, options: TrainOptions, observer: &mut dyn Observer) ->
         scope.spawn(move || {
             while let Ok(msg) = learner_rx.recv() {
                 let reply = match msg {
-                    LearnerMsg::Round {
-                        sequences,
-                        env_steps,
-                    } => match learner_ref.round(sequences, env_steps) {
+                    LearnerMsg::Round { sequences } => match learner_ref.round(sequences) {
                         Ok(stats) => LearnerReply::Round {
                             params: learner_ref.params(),
                             stats,
@@ -356,7 +352,6 @@ pub fn train(spec: &Spec, options: TrainOptions, observer: &mut dyn Observer) ->
             learner_tx
                 .send(LearnerMsg::Round {
                     sequences: std::mem::take(&mut pending),
-                    env_steps: counters.env_steps,
                 })
                 .map_err(|_| Error::Internal("learner thread stopped".into()))?;
             let mut acting = 0f64;

@@ -1,207 +1,137 @@
-//! The learning losses and their target arithmetic.
+//! The learning math, in one place: the learner calls these functions and the tests
+//! check them against worked values.
 //!
 //! - value rescaling h and h^-1 (Pohlen et al. 2018);
-//! - n-step double-Q targets (van Hasselt et al. 2016) over stored sequences, with terminal
-//!   transitions ending the return and time-limit truncation bootstrapping through
-//!   (Pardo et al. 2018);
+//! - n-step double-Q targets (van Hasselt et al. 2016) over a stored sequence, with
+//!   terminal transitions ending the return and time-limit truncation bootstrapping
+//!   through (Pardo et al. 2018);
 //! - the TD loss (squared or Huber) with masks and importance weights;
 //! - the quantile Huber loss (Dabney et al. 2017) with midpoints (2i-1)/2N;
-//! - sequence priorities p = eta*max|d| + (1-eta)*mean|d| (Kapturowski et al. 2019),
-//!   prioritized-replay probabilities and importance weights (Schaul et al. 2016);
-//! - the Q-value discrepancy between stored-state and fresh-unroll Q values
+//! - sequence priorities p = eta*max|d| + (1-eta)*mean|d| (Kapturowski et al. 2019) and
+//!   importance weights (Schaul et al. 2016);
+//! - the Q-value discrepancy between fresh-unroll and stored-state Q values
 //!   (Kapturowski et al. 2019).
 //!
 //! Targets are computed on the host (no gradient flows through them); losses are candle
 //! expressions whose backward reaches the network.
 
-use candle_core::{Device, Tensor};
+use candle_core::Tensor;
 use mnemon_spec::TdLoss;
 
 use crate::error::{Error, Result};
 
-/// h(x) = sign(x)(sqrt(|x|+1) - 1) + eps*x (Pohlen et al. 2018).
-pub fn h(x: f64, eps: f64) -> f64 {
-    x.signum() * ((x.abs() + 1.0).sqrt() - 1.0) + eps * x
-}
-
-/// The inverse of [`h`]: sign(y)(((sqrt(1 + 4 eps (|y| + 1 + eps)) - 1) / (2 eps))^2 - 1);
-/// for eps = 0, sign(y)((|y| + 1)^2 - 1).
-pub fn h_inv(y: f64, eps: f64) -> f64 {
-    if eps == 0.0 {
-        return y.signum() * ((y.abs() + 1.0).powi(2) - 1.0);
+/// Value rescaling h(x) = sign(x)(sqrt(|x|+1) - 1) + eps*x (Pohlen et al. 2018), applied
+/// to targets when `eps > 0`; `eps = 0` turns rescaling off (the identity).
+pub fn rescale_value(x: f64, eps: f64) -> f64 {
+    if eps > 0.0 {
+        x.signum() * ((x.abs() + 1.0).sqrt() - 1.0) + eps * x
+    } else {
+        x
     }
-    let s = ((1.0 + 4.0 * eps * (y.abs() + 1.0 + eps)).sqrt() - 1.0) / (2.0 * eps);
-    y.signum() * (s * s - 1.0)
 }
 
-/// Settings of the n-step target.
+/// The inverse of [`rescale_value`]:
+/// h^-1(y) = sign(y)(((sqrt(1 + 4 eps (|y| + 1 + eps)) - 1) / (2 eps))^2 - 1) when
+/// `eps > 0`, else the identity.
+pub fn unscale_value(y: f64, eps: f64) -> f64 {
+    if eps > 0.0 {
+        let s = ((1.0 + 4.0 * eps * (y.abs() + 1.0 + eps)).sqrt() - 1.0) / (2.0 * eps);
+        y.signum() * (s * s - 1.0)
+    } else {
+        y
+    }
+}
+
+/// The recorded outcomes of one stored sequence, as the n-step return reads them. All
+/// slices have at least `len` entries; entries from `len` on are padding.
+#[derive(Debug, Clone, Copy)]
+pub struct Outcomes<'a> {
+    /// Valid entries.
+    pub len: usize,
+    /// Reward after each entry's action.
+    pub reward: &'a [f32],
+    /// The episode terminated (not truncated) after the entry's action.
+    pub terminal: &'a [bool],
+    /// The entry has an action and a reward (false for a final bootstrap-only entry).
+    pub has_outcome: &'a [bool],
+}
+
+/// Where an n-step target of one entry bootstraps from.
 #[derive(Debug, Clone, Copy, PartialEq)]
-pub struct TargetSpec {
-    /// Discount gamma.
-    pub discount: f64,
-    /// n of the n-step return (>= 1).
-    pub n_step: usize,
-    /// eps of the value rescaling; 0 turns rescaling off (identity, not h with eps 0).
-    pub rescale: f64,
+pub struct NStepReturn {
+    /// sum_{i<k} gamma^i r_{t+i}.
+    pub rewards: f64,
+    /// k: the number of rewards summed (the bootstrap is discounted by gamma^k).
+    pub steps: usize,
+    /// The entry whose value is bootstrapped, or `None` after a terminal transition.
+    pub bootstrap: Option<usize>,
 }
 
-impl TargetSpec {
-    fn fwd(&self, x: f64) -> f64 {
-        if self.rescale == 0.0 {
-            x
-        } else {
-            h(x, self.rescale)
+/// The n-step return of entry `t` (which must have a target: an outcome, and a terminal
+/// or a next entry). The sum runs over up to `n` rewards; it stops at a terminal
+/// transition (no bootstrap), and where the window reaches the sequence's last entry,
+/// that entry is bootstrapped from (a final observation after a time-limit truncation,
+/// or the first entry of the next, overlapping sequence).
+pub fn n_step_return(seq: &Outcomes<'_>, t: usize, n: usize, gamma: f64) -> NStepReturn {
+    let mut rewards = 0.0;
+    for k in 0..n {
+        let idx = t + k;
+        let last = idx + 1 >= seq.len;
+        if k > 0 && last && !(seq.has_outcome[idx] && seq.terminal[idx]) {
+            return NStepReturn {
+                rewards,
+                steps: k,
+                bootstrap: Some(idx),
+            };
+        }
+        rewards += gamma.powi(k as i32) * seq.reward[idx] as f64;
+        if seq.terminal[idx] {
+            return NStepReturn {
+                rewards,
+                steps: k + 1,
+                bootstrap: None,
+            };
         }
     }
-    fn inv(&self, y: f64) -> f64 {
-        if self.rescale == 0.0 {
-            y
-        } else {
-            h_inv(y, self.rescale)
+    NStepReturn {
+        rewards,
+        steps: n,
+        bootstrap: Some(t + n),
+    }
+}
+
+/// The n-step target y = h(R + gamma^k h^-1(q)) (van Hasselt et al. 2016; Pohlen et al.
+/// 2018), q the bootstrap value in the rescaled space (`None` after a terminal: y = h(R)).
+pub fn n_step_target(ret: &NStepReturn, bootstrap: Option<f64>, gamma: f64, eps: f64) -> f64 {
+    match bootstrap {
+        None => rescale_value(ret.rewards, eps),
+        Some(q) => {
+            let discount = gamma.powi(ret.steps as i32);
+            rescale_value(ret.rewards + discount * unscale_value(q, eps), eps)
         }
     }
 }
 
-/// Per-step flags of a stored sequence for [`n_step_targets`].
-pub mod step {
-    /// The step has a transition: an action was taken and its reward recorded.
-    pub const TRANSITION: u8 = 1;
-    /// The step's transition ended the episode in a terminal state: the return stops
-    /// here and nothing is bootstrapped after it.
-    pub const TERMINAL: u8 = 2;
-    /// The step's observation is real and its value may be bootstrapped from. Set it on
-    /// every transition step, and on the observation that follows a time-limit truncation
-    /// (a truncation is not a terminal: the target bootstraps through it).
-    pub const OBSERVED: u8 = 4;
+/// Mean over the `k` quantiles of each action: `q` `[A, K]` -> `out` `[A]` (k = 1 for the
+/// value and dueling heads gives the values themselves).
+pub fn action_means(q: &[f32], k: usize, out: &mut Vec<f32>) {
+    out.clear();
+    out.extend(q.chunks_exact(k).map(|c| c.iter().sum::<f32>() / k as f32));
 }
 
-/// Targets and the mask saying which steps have one.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Targets {
-    /// `[B, S, K]` target values (K = 1, or the number of quantiles).
-    pub values: Vec<f32>,
-    /// `[B, S]`: 1 where a target exists.
-    pub mask: Vec<f32>,
-}
-
-/// Double-Q bootstrap values: for each row, the action maximising the online network's
-/// Q (mean over quantiles), and the target network's `K` values at that action.
-///
-/// `q_online`, `q_target`: `[rows, A, K]` (K = 1 for value heads). Returns `[rows, K]`.
-pub fn double_q_bootstrap(
-    q_online: &[f32],
-    q_target: &[f32],
-    rows: usize,
-    actions: usize,
-    k: usize,
-) -> Result<Vec<f32>> {
-    let per = actions * k;
-    if q_online.len() != rows * per || q_target.len() != rows * per {
-        return Err(Error::shape(
-            "double_q_bootstrap",
-            format!("[{rows}, {actions}, {k}] for both networks"),
-            format!("{} and {} values", q_online.len(), q_target.len()),
-        ));
-    }
-    let mut out = Vec::with_capacity(rows * k);
-    for r in 0..rows {
-        let on = &q_online[r * per..(r + 1) * per];
-        let mut best = 0;
-        let mut best_v = f32::NEG_INFINITY;
-        for a in 0..actions {
-            let v: f32 = on[a * k..(a + 1) * k].iter().sum::<f32>() / k as f32;
-            if v > best_v {
-                best_v = v;
-                best = a;
-            }
-        }
-        out.extend_from_slice(&q_target[r * per + best * k..r * per + (best + 1) * k]);
-    }
-    Ok(out)
-}
-
-/// n-step double-Q targets over a batch of stored sequences.
-///
-/// `rewards`, `flags` `[B, S]` (flags from [`step`]); `bootstrap` `[B, S, K]` from
-/// [`double_q_bootstrap`] on the networks' outputs (in the rescaled space). For each
-/// transition step t: y = h( sum_{k<m} g^k r_{t+k} + g^m h^-1(bootstrap(s_{t+m})) ), with
-/// m = n, or shorter where the recorded transitions or the sequence end first (then m is
-/// the furthest observed state in the window). The sum stops at a terminal transition,
-/// with no bootstrap. A step with no observed state after it in the sequence gets no
-/// target (mask 0); overlapping sequences cover it.
-pub fn n_step_targets(
-    spec: &TargetSpec,
-    batch: usize,
-    steps: usize,
-    k: usize,
-    rewards: &[f32],
-    flags: &[u8],
-    bootstrap: &[f32],
-) -> Result<Targets> {
-    if rewards.len() != batch * steps
-        || flags.len() != batch * steps
-        || bootstrap.len() != batch * steps * k
-    {
-        return Err(Error::shape(
-            "n_step_targets",
-            format!("rewards and flags [{batch}, {steps}], bootstrap [{batch}, {steps}, {k}]"),
-            format!(
-                "{}, {}, {} values",
-                rewards.len(),
-                flags.len(),
-                bootstrap.len()
-            ),
-        ));
-    }
-    let g = spec.discount;
-    let mut values = vec![0f32; batch * steps * k];
-    let mut mask = vec![0f32; batch * steps];
-    for b in 0..batch {
-        let row = b * steps;
-        for t in 0..steps {
-            if flags[row + t] & step::TRANSITION == 0 {
-                continue;
-            }
-            // Sum rewards greedily; remember the furthest state the return can bootstrap
-            // from (an observed state inside the sequence), so windows that run off the
-            // recorded transitions use a shorter n.
-            let (mut ret, mut disc) = (0f64, 1f64);
-            let mut boot_at: Option<(f64, f64, usize)> = None;
-            let mut terminal = false;
-            for k in 0..spec.n_step.max(1) {
-                let j = t + k;
-                ret += disc * rewards[row + j] as f64;
-                disc *= g;
-                if flags[row + j] & step::TERMINAL != 0 {
-                    terminal = true;
-                    break;
-                }
-                let next = j + 1;
-                if next >= steps {
-                    break;
-                }
-                if flags[row + next] & step::OBSERVED != 0 {
-                    boot_at = Some((ret, disc, next));
-                }
-                if flags[row + next] & step::TRANSITION == 0 {
-                    break;
-                }
-            }
-            let out = &mut values[(row + t) * k..(row + t + 1) * k];
-            if terminal {
-                out.iter_mut().for_each(|v| *v = spec.fwd(ret) as f32);
-            } else if let Some((ret, disc, j)) = boot_at {
-                let boot = &bootstrap[(row + j) * k..(row + j + 1) * k];
-                for (o, &bv) in out.iter_mut().zip(boot) {
-                    *o = spec.fwd(ret + disc * spec.inv(bv as f64)) as f32;
-                }
-            } else {
-                continue;
-            }
-            mask[row + t] = 1.0;
+/// The double-Q action (van Hasselt et al. 2016): the one whose online Q (mean over the
+/// `k` quantiles) is largest, the first on ties; NaN never wins. `q_online` `[A, K]`.
+pub fn double_q_action(q_online: &[f32], k: usize) -> usize {
+    let mut best = 0;
+    let mut best_v = f32::NEG_INFINITY;
+    for (a, c) in q_online.chunks_exact(k).enumerate() {
+        let v = c.iter().sum::<f32>() / k as f32;
+        if v > best_v {
+            best = a;
+            best_v = v;
         }
     }
-    Ok(Targets { values, mask })
+    best
 }
 
 /// Q values at the taken actions: `q` `[B, L, A]` -> `[B, L]`, or `[B, L, A, N]` ->
@@ -458,109 +388,59 @@ impl candle_core::CustomOp2 for QuantileHuber {
     }
 }
 
-/// |target - prediction| per step, for priorities: `pred` `[B, L]` or `[B, L, N]`
-/// (quantiles are averaged), `targets` the same shape.
-pub fn abs_td_errors(pred: &Tensor, targets: &Tensor) -> Result<Vec<f32>> {
-    let d = (targets.detach() - pred.detach())?;
-    let d = if d.rank() == 3 { d.mean(2)? } else { d };
-    Ok(d.abs()?.flatten_all()?.to_vec1::<f32>()?)
-}
-
-/// Per-sequence priorities p = eta*max|d| + (1-eta)*mean|d| over the masked steps
-/// (Kapturowski et al. 2019). `abs_td`, `mask` `[B, L]`. A sequence with no masked step
-/// gets 0.
-pub fn sequence_priorities(
-    abs_td: &[f32],
-    mask: &[f32],
-    batch: usize,
-    eta: f64,
-) -> Result<Vec<f32>> {
-    if batch == 0 || !abs_td.len().is_multiple_of(batch) || mask.len() != abs_td.len() {
-        return Err(Error::shape(
-            "sequence_priorities",
-            format!("abs_td and mask [{batch}, L]"),
-            format!("{} and {} values", abs_td.len(), mask.len()),
-        ));
+/// Priority of a sequence from the absolute TD errors of its learned steps:
+/// p = eta*max|d| + (1-eta)*mean|d| (Kapturowski et al. 2019). An empty slice gives 0.
+pub fn sequence_priority(abs_td: &[f32], eta: f64) -> f64 {
+    if abs_td.is_empty() {
+        return 0.0;
     }
-    let l = abs_td.len() / batch;
-    Ok((0..batch)
-        .map(|b| {
-            let (mut max, mut sum, mut n) = (0f64, 0f64, 0usize);
-            for t in 0..l {
-                if mask[b * l + t] > 0.0 {
-                    let d = abs_td[b * l + t].abs() as f64;
-                    max = max.max(d);
-                    sum += d;
-                    n += 1;
-                }
-            }
-            if n == 0 {
-                0.0
-            } else {
-                (eta * max + (1.0 - eta) * sum / n as f64) as f32
-            }
-        })
-        .collect())
+    let max = abs_td.iter().fold(0f32, |m, &d| m.max(d.abs())) as f64;
+    let mean = abs_td.iter().map(|d| d.abs() as f64).sum::<f64>() / abs_td.len() as f64;
+    eta * max + (1.0 - eta) * mean
 }
 
-/// Prioritized-replay sampling probabilities P(i) = p_i^a / sum_k p_k^a (Schaul et al. 2016).
-pub fn priority_probabilities(priorities: &[f64], exponent: f64) -> Vec<f64> {
-    let pa: Vec<f64> = priorities.iter().map(|p| p.powf(exponent)).collect();
-    let total: f64 = pa.iter().sum();
-    pa.iter().map(|x| x / total).collect()
-}
-
-/// Importance weights w_i = (N P(i))^-b / max_k w_k (Schaul et al. 2016), for the sampled
-/// probabilities `probs` out of `n` items in replay. (Normalised by the batch maximum.)
-pub fn importance_weights(probs: &[f64], n: usize, correction: f64) -> Vec<f64> {
-    let w: Vec<f64> = probs
+/// Importance weights w_i = (N P(i))^-b / max_k w_k (Schaul et al. 2016) of a sampled
+/// batch, normalised by the largest weight in the batch (not in the whole store: one
+/// stale sequence with a near-zero priority would shrink every weight). `mass` holds the
+/// sampled sequences' priority masses p_i^a, `total` the store's sum of them, so that
+/// P(i) = mass_i / total; `stored` is N, `correction` is b.
+pub fn importance_weights(mass: &[f64], total: f64, stored: usize, correction: f64) -> Vec<f64> {
+    let n = stored as f64;
+    let raw: Vec<f64> = mass
         .iter()
-        .map(|p| (n as f64 * p).powf(-correction))
+        .map(|&m| (n * m / total).powf(-correction))
         .collect();
-    let max = w.iter().cloned().fold(f64::MIN, f64::max);
-    w.iter().map(|x| x / max).collect()
+    let max = raw.iter().cloned().fold(0.0, f64::max);
+    raw.iter().map(|w| w / max).collect()
 }
 
-/// Q-value discrepancy (Kapturowski et al. 2019) of one sequence at learned step `i`:
-/// ||q_hat_i - q_i||_2 / |max_{a,j} q_hat_{j,a}|, where `q_fresh` `[L, A]` comes from the
-/// states the current network recomputed and `q_stored` `[L, A]` from the stored actor
-/// states.
-pub fn q_discrepancy(q_fresh: &[f32], q_stored: &[f32], actions: usize, i: usize) -> Result<f64> {
-    if actions == 0
-        || q_fresh.len() != q_stored.len()
-        || !q_fresh.len().is_multiple_of(actions)
-        || (i + 1) * actions > q_fresh.len()
-    {
+/// Q-value discrepancy (Kapturowski et al. 2019) at one step: ||q_fresh - q_stored||_2
+/// divided by the largest |q_fresh| over the actions at that step (at least 1e-6), where
+/// `q_fresh` `[A]` comes from the state the current network recomputed and `q_stored`
+/// `[A]` from the actor's stored state. (The paper divides by |max q_fresh| over the
+/// actions and all steps of the sequence; this normalises per step.)
+pub fn q_discrepancy(q_fresh: &[f32], q_stored: &[f32]) -> Result<f64> {
+    if q_fresh.is_empty() || q_fresh.len() != q_stored.len() {
         return Err(Error::shape(
             "q_discrepancy",
-            format!("q_fresh and q_stored [L, {actions}] with step {i} < L"),
+            "q_fresh and q_stored of the same length A > 0",
             format!("{} and {} values", q_fresh.len(), q_stored.len()),
         ));
     }
-    let row = i * actions..(i + 1) * actions;
-    let num: f64 = q_fresh[row.clone()]
+    let diff: f64 = q_fresh
         .iter()
-        .zip(&q_stored[row])
-        .map(|(a, b)| ((a - b) as f64).powi(2))
+        .zip(q_stored)
+        .map(|(x, y)| ((x - y) as f64).powi(2))
         .sum::<f64>()
         .sqrt();
-    let den = q_fresh
-        .iter()
-        .cloned()
-        .fold(f32::NEG_INFINITY, f32::max)
-        .abs() as f64;
-    Ok(if den == 0.0 { 0.0 } else { num / den })
-}
-
-/// Builds a `[B, L]` f32 tensor from host data (masks, targets).
-pub fn host_tensor(values: &[f32], shape: &[usize]) -> Result<Tensor> {
-    Ok(Tensor::from_slice(values, shape, &Device::Cpu)?)
+    let scale = q_fresh.iter().fold(0f32, |m, v| m.max(v.abs())).max(1e-6) as f64;
+    Ok(diff / scale)
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use candle_core::DType;
+    use candle_core::{DType, Device};
 
     fn close(a: f64, b: f64, tol: f64) -> bool {
         (a - b).abs() <= tol * b.abs().max(1.0)
@@ -580,7 +460,11 @@ mod tests {
             (-0.5, -0.225244871392),
             (1e6, 1999.000499999875),
         ] {
-            assert!(close(h(x, e), y, 1e-11), "h({x}) = {} want {y}", h(x, e));
+            assert!(
+                close(rescale_value(x, e), y, 1e-11),
+                "h({x}) = {} want {y}",
+                rescale_value(x, e)
+            );
         }
         for (y, x) in [
             (1.0, 2.988056701676),
@@ -588,125 +472,100 @@ mod tests {
             (5.0, 34.586162255552),
         ] {
             assert!(
-                close(h_inv(y, e), x, 1e-11),
+                close(unscale_value(y, e), x, 1e-11),
                 "h_inv({y}) = {} want {x}",
-                h_inv(y, e)
+                unscale_value(y, e)
             );
         }
-        assert!(close(h(1.0, 1e-2), 0.424213562373, 1e-11));
-        assert!(close(h(-10.0, 1e-2), -2.416624790355, 1e-11));
+        assert!(close(rescale_value(1.0, 1e-2), 0.424213562373, 1e-11));
+        assert!(close(rescale_value(-10.0, 1e-2), -2.416624790355, 1e-11));
         for x in [-1e4, -3.0, -0.1, 0.0, 0.2, 7.0, 5e5] {
-            assert!(close(h_inv(h(x, e), e), x, 1e-9), "round trip at {x}");
             assert!(
-                close(h_inv(h(x, 0.0), 0.0), x, 1e-9),
-                "round trip eps 0 at {x}"
+                close(unscale_value(rescale_value(x, e), e), x, 1e-9),
+                "round trip at {x}"
             );
+            // eps = 0 turns rescaling off.
+            assert_eq!(rescale_value(x, 0.0), x);
+            assert_eq!(unscale_value(x, 0.0), x);
+        }
+    }
+
+    /// Outcomes of `len` entries with `rewards` (the rest 0), an outcome on the first
+    /// `outcomes` entries and a terminal transition at `terminal_at`.
+    fn outcomes<'a>(
+        rewards: &'a [f32],
+        terminal: &'a mut Vec<bool>,
+        has_outcome: &'a mut Vec<bool>,
+        outcomes: usize,
+        terminal_at: Option<usize>,
+    ) -> Outcomes<'a> {
+        let len = rewards.len();
+        *terminal = (0..len).map(|i| Some(i) == terminal_at).collect();
+        *has_outcome = (0..len).map(|i| i < outcomes).collect();
+        Outcomes {
+            len,
+            reward: rewards,
+            terminal,
+            has_outcome,
         }
     }
 
     // Source: van Hasselt et al. 2016 (double Q) + Pohlen et al. 2018 (rescaling); worked
-    // values computed in REFERENCE.md.
+    // values computed in REFERENCE.md: g = 0.997, n = 5, rewards [1, 0, 0, 0, 1],
+    // Q_online(s5) = [1, 2, 1.5], Q_target(s5) = [0.8, 1.7, 2.2] -> y = 2.033217439254.
     #[test]
     fn n_step_double_q_worked_values() {
-        let spec = TargetSpec {
-            discount: 0.997,
-            n_step: 5,
-            rescale: 1e-3,
-        };
-        let q_online = [
-            [0.0f32; 3],
-            [0.0; 3],
-            [0.0; 3],
-            [0.0; 3],
-            [0.0; 3],
-            [1.0, 2.0, 1.5],
-        ]
-        .concat();
-        let q_target = [
-            [0.0f32; 3],
-            [0.0; 3],
-            [0.0; 3],
-            [0.0; 3],
-            [0.0; 3],
-            [0.8, 1.7, 2.2],
-        ]
-        .concat();
-        let boot = double_q_bootstrap(&q_online, &q_target, 6, 3, 1).unwrap();
-        assert_eq!(
-            boot[5], 1.7,
-            "double Q picks the online argmax (action 1) from the target"
-        );
-        let rewards = [1.0, 0.0, 0.0, 0.0, 1.0, 0.0];
-        let f = step::TRANSITION | step::OBSERVED;
-        let flags = [f, f, f, f, f, step::OBSERVED];
-        let t = n_step_targets(&spec, 1, 6, 1, &rewards, &flags, &boot).unwrap();
-        assert!(
-            close(t.values[0] as f64, 2.033217439254, 1e-6),
-            "y = {}",
-            t.values[0]
-        );
-        assert_eq!(t.mask[0], 1.0);
-        assert_eq!(t.mask[5], 0.0, "the last observation has no transition");
-        let plain = TargetSpec {
-            rescale: 0.0,
-            ..spec
-        };
-        let t = n_step_targets(&plain, 1, 6, 1, &rewards, &flags, &boot).unwrap();
-        assert!(
-            close(t.values[0] as f64, 3.662706433769, 1e-6),
-            "y = {}",
-            t.values[0]
-        );
-        // Terminal after 3 steps, rewards [1, 0, 1]: y = h(1 + g^2).
-        let flags = [f, f, f | step::TERMINAL, step::OBSERVED];
-        let t = n_step_targets(&spec, 1, 4, 1, &[1.0, 0.0, 1.0, 0.0], &flags, &[9.0; 4]).unwrap();
-        assert!(
-            close(t.values[0] as f64, 0.732314499545, 1e-6),
-            "y = {}",
-            t.values[0]
-        );
+        let (mut term, mut out) = (Vec::new(), Vec::new());
+        let rewards = [1.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0];
+        let seq = outcomes(&rewards, &mut term, &mut out, 6, None);
+        let ret = n_step_return(&seq, 0, 5, 0.997);
+        assert_eq!((ret.steps, ret.bootstrap), (5, Some(5)));
+        assert!((ret.rewards - 1.988053892081).abs() < 1e-9);
+        let best = double_q_action(&[1.0, 2.0, 1.5], 1);
+        assert_eq!(best, 1, "double Q picks the online argmax");
+        let q_target = [0.8f64, 1.7, 2.2];
+        let y = n_step_target(&ret, Some(q_target[best]), 0.997, 1e-3);
+        assert!((y - 2.033217439254).abs() < 1e-9, "y = {y}");
+        let plain = n_step_target(&ret, Some(q_target[best]), 0.997, 0.0);
+        assert!((plain - 3.662706433769).abs() < 1e-9, "y = {plain}");
+        // Quantile heads choose by the mean over quantiles: means [1, 1.5, 1.25].
+        assert_eq!(double_q_action(&[0.0, 2.0, 1.0, 2.0, 3.0, -0.5], 2), 1);
+        // Ties go to the first action, NaN never wins (analytic).
+        assert_eq!(double_q_action(&[f32::NAN, 3.0, 3.0], 1), 1);
+        // Terminal after 3 steps, rewards [1, 0, 1]: y = h(1 + g^2) = 0.732314499545.
+        let rewards = [1.0, 0.0, 1.0];
+        let seq = outcomes(&rewards, &mut term, &mut out, 3, Some(2));
+        let ret = n_step_return(&seq, 0, 5, 0.997);
+        assert_eq!((ret.steps, ret.bootstrap), (3, None));
+        let y = n_step_target(&ret, None, 0.997, 1e-3);
+        assert!((y - 0.732314499545).abs() < 1e-9, "y = {y}");
     }
 
     // Pardo et al. 2018: a time-limit truncation is not terminal; the target bootstraps
-    // from the observation after the last transition.
+    // from the observation after the last transition. Values by hand (g = 0.5).
     #[test]
     fn truncation_bootstraps_terminal_does_not() {
-        let spec = TargetSpec {
-            discount: 0.5,
-            n_step: 3,
-            rescale: 0.0,
+        let (mut term, mut out) = (Vec::new(), Vec::new());
+        // Two transitions, then the final observation of a truncated episode (value 8).
+        let rewards = [1.0, 1.0, 0.0];
+        let truncated = outcomes(&rewards, &mut term, &mut out, 2, None);
+        let y = |t: usize, seq: &Outcomes<'_>| {
+            let ret = n_step_return(seq, t, 3, 0.5);
+            n_step_target(&ret, ret.bootstrap.map(|_| 8.0), 0.5, 0.0)
         };
-        let f = step::TRANSITION | step::OBSERVED;
-        let truncated = [f, f, step::OBSERVED];
-        let t = n_step_targets(
-            &spec,
-            1,
-            3,
-            1,
-            &[1.0, 1.0, 0.0],
-            &truncated,
-            &[0.0, 0.0, 8.0],
-        )
-        .unwrap();
-        assert_eq!(t.values[0], 1.0 + 0.5 + 0.25 * 8.0);
-        assert_eq!(t.values[1], 1.0 + 0.5 * 8.0);
-        let terminal = [f, f | step::TERMINAL, 0];
-        let t = n_step_targets(
-            &spec,
-            1,
-            3,
-            1,
-            &[1.0, 1.0, 0.0],
-            &terminal,
-            &[0.0, 0.0, 8.0],
-        )
-        .unwrap();
-        assert_eq!(t.values[0], 1.5);
-        assert_eq!(t.values[1], 1.0);
-        // a sequence that simply ends: no target for the last transition
-        let t = n_step_targets(&spec, 1, 2, 1, &[1.0, 1.0], &[f, f], &[0.0, 0.0]).unwrap();
-        assert_eq!(t.mask, vec![1.0, 0.0]);
-        assert_eq!(t.values[0], 1.0 + 0.5 * 0.0);
+        assert_eq!(n_step_return(&truncated, 0, 3, 0.5).bootstrap, Some(2));
+        assert_eq!(y(0, &truncated), 1.0 + 0.5 + 0.25 * 8.0);
+        assert_eq!(y(1, &truncated), 1.0 + 0.5 * 8.0);
+        let rewards = [1.0, 1.0];
+        let terminal = outcomes(&rewards, &mut term, &mut out, 2, Some(1));
+        assert_eq!(n_step_return(&terminal, 0, 3, 0.5).bootstrap, None);
+        assert_eq!(y(0, &terminal), 1.5);
+        assert_eq!(y(1, &terminal), 1.0);
+        // A window that fits in the sequence bootstraps n steps ahead.
+        let rewards = [1.0; 6];
+        let long = outcomes(&rewards, &mut term, &mut out, 6, None);
+        let ret = n_step_return(&long, 1, 3, 0.5);
+        assert_eq!((ret.rewards, ret.steps, ret.bootstrap), (1.75, 3, Some(4)));
     }
 
     // Source: Dabney et al. 2017 (quantile Huber loss); worked values in REFERENCE.md.
@@ -779,34 +638,47 @@ mod tests {
     // (probabilities, importance weights); worked values in REFERENCE.md.
     #[test]
     fn priorities_worked_values() {
-        let p = sequence_priorities(&[0.1, -0.5, 0.2, 2.0], &[1.0; 4], 1, 0.9).unwrap();
-        assert!((p[0] - 1.87).abs() < 1e-6);
-        let probs = priority_probabilities(&[1.87, 0.5, 1.0, 0.1], 0.9);
-        for (a, b) in probs
+        let p = sequence_priority(&[0.1, -0.5, 0.2, 2.0], 0.9);
+        assert!((p - 1.87).abs() < 1e-6, "{p}");
+        assert_eq!(sequence_priority(&[3.0], 0.9), 3.0);
+        assert_eq!(sequence_priority(&[], 0.9), 0.0);
+        let mass: Vec<f64> = [1.87f64, 0.5, 1.0, 0.1]
+            .iter()
+            .map(|p| p.powf(0.9))
+            .collect();
+        let total: f64 = mass.iter().sum();
+        for (m, want) in mass
             .iter()
             .zip([0.5138603752, 0.1567691804, 0.2925416346, 0.0368288098])
         {
-            assert!((a - b).abs() < 1e-9, "{a} vs {b}");
+            assert!((m / total - want).abs() < 1e-9, "{} vs {want}", m / total);
         }
-        let w = importance_weights(&probs, 4, 0.6);
+        let w = importance_weights(&mass, total, 4, 0.6);
         for (a, b) in w
             .iter()
             .zip([0.2056863789, 0.4193302545, 0.2884031503, 1.0])
         {
             assert!((a - b).abs() < 1e-9, "{a} vs {b}");
         }
-        let p = sequence_priorities(&[3.0, 1.0, 0.0, 0.0], &[1.0, 0.0, 0.0, 0.0], 2, 0.9).unwrap();
-        assert_eq!(p, vec![3.0, 0.0]);
+        // Normalised by the batch's largest weight: a batch of the first two only.
+        let w = importance_weights(&mass[..2], total, 4, 0.6);
+        assert!((w[0] - 0.2056863789 / 0.4193302545).abs() < 1e-9);
+        assert_eq!(w[1], 1.0);
     }
 
-    // Source: Kapturowski et al. 2019, the Q-value discrepancy formula in REFERENCE.md.
+    // Source: Kapturowski et al. 2019, the Q-value discrepancy formula in REFERENCE.md,
+    // normalised per step; values by hand.
     #[test]
     fn q_discrepancy_formula() {
         let fresh = [1.0f32, 2.0, 4.0, -1.0];
         let stored = [1.0f32, 2.0, 1.0, 3.0];
-        assert_eq!(q_discrepancy(&fresh, &stored, 2, 0).unwrap(), 0.0);
-        assert!((q_discrepancy(&fresh, &stored, 2, 1).unwrap() - 5.0 / 4.0).abs() < 1e-12);
-        assert!(q_discrepancy(&fresh, &stored, 2, 2).is_err());
+        assert_eq!(q_discrepancy(&fresh[..2], &stored[..2]).unwrap(), 0.0);
+        // ||(3, -4)|| / max(|4|, |-1|) = 5 / 4
+        assert!((q_discrepancy(&fresh[2..], &stored[2..]).unwrap() - 5.0 / 4.0).abs() < 1e-12);
+        // This normalisation divides by the largest |Q|; when every Q is negative that is
+        // not |max Q|: ||(-3, -4)|| / |-4| = 5 / 4.
+        assert!((q_discrepancy(&[-4.0, -1.0], &[-1.0, 3.0]).unwrap() - 5.0 / 4.0).abs() < 1e-12);
+        assert!(q_discrepancy(&fresh, &stored[..2]).is_err());
     }
 
     #[test]
