@@ -7,8 +7,8 @@ use std::time::Duration;
 
 use clap::Args;
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use mnemon_engine::eval::{evaluate, EvalSetup};
-use mnemon_engine::train::{train, Observer, Progress, Silent, TrainOptions};
+use mnemon_engine::eval::{evaluate, exact_optimum, EvalSetup};
+use mnemon_engine::train::{train, Observer, Progress, Silent, StopReason, TrainOptions};
 use mnemon_spec::Spec;
 use serde_json::json;
 
@@ -227,9 +227,19 @@ pub fn run_train(args: TrainArgs) -> Result<(), Failure> {
         );
         eprintln!("checkpoint: {}", summary.checkpoint.display());
     }
+    if summary.stopped_by == StopReason::Interrupt {
+        if !args.json {
+            eprintln!(
+                "interrupted; the run continues with: mnemon train --resume {}",
+                summary.run_dir.display()
+            );
+        }
+        return Err(Failure::Interrupted);
+    }
     Ok(())
 }
 
+/// Bad input (spec, task, files, checkpoints) exits 2; anything else 1.
 pub(crate) fn engine_failure(e: mnemon_engine::Error) -> Failure {
     if e.is_input() {
         Failure::BadInput(format!("mnemon: {e}"))
@@ -259,10 +269,10 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
         max_steps: 0,
     };
     mnemon_engine::learner::check_task_fits(&spec, &loaded.params).map_err(engine_failure)?;
-    let report = evaluate(&spec.task, &spec.agent, &loaded.params, &setup)
-        .map_err(|e| Failure::BadInput(format!("mnemon: task failed: {e}")))?;
+    let report =
+        evaluate(&spec.task, &spec.agent, &loaded.params, &setup).map_err(engine_failure)?;
     let (lo, hi) = report.ci95();
-    let optimum = exact_optimum(&spec);
+    let optimum = exact_optimum(&spec.task, spec.learn.discount);
     if args.json {
         println!(
             "{}",
@@ -275,7 +285,7 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
                 "mean_discounted_return": report.mean_discounted(),
                 "success_rate": report.success_rate(),
                 "mean_length": report.mean_length(),
-                "optimum_discounted_return": optimum,
+                "optimum_discounted_return": optimum.map(|o| o.value),
                 "seed": args.seed,
                 "epsilon": args.epsilon,
             })
@@ -299,8 +309,10 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
         );
         if let Some(opt) = optimum {
             println!(
-                "optimum      {opt:.4}  (exact discounted optimum by belief-space dynamic programming; the agent reaches {:.1}% of it)",
-                100.0 * report.mean_discounted() / opt
+                "optimum      {:.4}  ({}; the agent reaches {:.1}% of it)",
+                opt.value,
+                opt.method,
+                100.0 * report.mean_discounted() / opt.value
             );
         }
         if let Some(s) = report.success_rate() {
@@ -309,19 +321,4 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
         println!("length       {:.1} steps", report.mean_length());
     }
     Ok(())
-}
-
-/// The exact optimal discounted return of the spec's task, where mnemon can compute it
-/// (the Tiger problem, by belief-space dynamic programming).
-fn exact_optimum(spec: &Spec) -> Option<f64> {
-    if spec.task.kind != "tiger" {
-        return None;
-    }
-    let t = &spec.task;
-    Some(mnemon_envs::tiger::optimal_value(
-        t.int("horizon")? as usize,
-        spec.learn.discount,
-        t.float("listen_accuracy")?,
-        t.bool("end_on_open")?,
-    ))
 }
