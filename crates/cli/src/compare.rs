@@ -117,7 +117,7 @@ pub fn run_compare(args: CompareArgs) -> Result<(), Failure> {
     // Every argument is checked before the first run starts.
     let threshold = threshold_of(&args, &plan[0].spec)?;
     let out = plan_out(&args, &plan)?;
-    let stop = install_interrupt();
+    let stop = crate::train::install_interrupt();
     let started = Instant::now();
     let finished = train_all(&plan, &args, &stop)?;
     if stop.load(Ordering::SeqCst) {
@@ -377,18 +377,6 @@ fn parse_threshold(text: &str) -> Result<Threshold, Failure> {
         "return" if v.is_finite() => Ok(Threshold::Return(v)),
         _ => Err(bad()),
     }
-}
-
-fn install_interrupt() -> Arc<AtomicBool> {
-    let stop = Arc::new(AtomicBool::new(false));
-    let flag = stop.clone();
-    // A second Ctrl-C exits at once.
-    let _ = ctrlc::set_handler(move || {
-        if flag.swap(true, Ordering::SeqCst) {
-            std::process::exit(130);
-        }
-    });
-    stop
 }
 
 /// Trains every planned run that is not finished (`mnemon_engine::schedule`),

@@ -16,14 +16,14 @@ pub enum Error {
     /// A task could not be built or stepped (an outside process crashed, a setting the
     /// task refuses).
     #[error("task failed: {0}")]
-    TaskFailed(#[from] mnemon_envs::TaskError),
+    TaskFailed(#[source] Box<mnemon_envs::TaskError>),
     /// A task failure said in words.
     #[error("task failed: {0}")]
     Task(String),
     /// The network side failed: a checkpoint that cannot be read, a shape that does not
     /// fit, a tensor operation.
     #[error("{0}")]
-    Nets(#[from] mnemon_nets::Error),
+    Nets(#[source] Box<mnemon_nets::Error>),
     /// A run file (metrics, plan, report) could not be read or written.
     #[error("{0}")]
     Records(#[from] mnemon_runs::Error),
@@ -43,6 +43,19 @@ pub enum Error {
     Internal(String),
 }
 
+// The large causes are boxed so that `Result<T, Error>` stays small on every path.
+impl From<mnemon_envs::TaskError> for Error {
+    fn from(e: mnemon_envs::TaskError) -> Self {
+        Error::TaskFailed(Box::new(e))
+    }
+}
+
+impl From<mnemon_nets::Error> for Error {
+    fn from(e: mnemon_nets::Error) -> Self {
+        Error::Nets(Box::new(e))
+    }
+}
+
 impl Error {
     /// An I/O error at `path`.
     pub fn io(path: &Path, source: std::io::Error) -> Self {
@@ -59,7 +72,7 @@ impl Error {
             Error::Input(_) | Error::Task(_) | Error::TaskFailed(_) | Error::Io { .. } => true,
             Error::Records(e) => !matches!(e, mnemon_runs::Error::Encode(_)),
             Error::Nets(e) => matches!(
-                e,
+                **e,
                 mnemon_nets::Error::Checkpoint { .. }
                     | mnemon_nets::Error::Io { .. }
                     | mnemon_nets::Error::Spec(_)
