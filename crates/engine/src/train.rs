@@ -258,19 +258,11 @@ impl<'a> Run<'a> {
     fn rounds(&mut self, workers: &Workers, observer: &mut dyn Observer) -> Result<StopReason> {
         loop {
             let round = self.act_and_learn(workers, observer)?;
-            let wanted = self.stop_wanted(round.record.wall_seconds);
-            let reached = if self.evaluation_due(wanted.is_some()) {
-                self.evaluate()?
-            } else {
-                false
-            };
-            self.record(round.record.clone())?;
+            let stopping = self.stop_wanted(round.record.wall_seconds);
+            let reached = self.evaluation_due(stopping.is_some()) && self.evaluate()?;
+            self.record(&round.record)?;
             observer.progress(&self.progress(&round));
-            if let Some(reason) = if reached {
-                Some(StopReason::Target)
-            } else {
-                wanted
-            } {
+            if let Some(reason) = reached.then_some(StopReason::Target).or(stopping) {
                 self.checkpoint(workers, Some(reason))?;
                 return Ok(reason);
             }
@@ -422,9 +414,12 @@ impl<'a> Run<'a> {
     }
 
     /// Writes the round's train record with the phases so far.
-    fn record(&mut self, mut record: TrainRecord) -> Result<()> {
-        record.phases = self.phases.clone();
-        self.dir.log(&Record::Train(record))
+    fn record(&mut self, record: &TrainRecord) -> Result<()> {
+        let phases = self.phases.clone();
+        self.dir.log(&Record::Train(TrainRecord {
+            phases,
+            ..record.clone()
+        }))
     }
 
     /// What the observer is shown after a round.
