@@ -4,12 +4,12 @@
 //! One round: every actor thread steps its lanes `refresh` env steps with the
 //! parameters of the previous round while the learner thread inserts the previous
 //! round's sequences and trains until it has sampled `replay_ratio` transitions per
-//! inserted transition. Then the coordinator ([`Run`], on the calling thread) collects
+//! inserted transition. Then the coordinator (`Run`, on the calling thread) collects
 //! both, publishes the new parameters, records, evaluates and checkpoints when due.
 //! Actors wait for a slow learner and the learner for slow actors, so the ratio the
 //! spec asks for holds on any machine and a seed reproduces a run.
 //!
-//! The threads and their messages live in [`crate::workers`]; this module holds the
+//! The threads and their messages live in `workers.rs`; this module holds the
 //! coordinator's phases.
 
 use std::path::{Path, PathBuf};
