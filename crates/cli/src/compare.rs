@@ -24,8 +24,9 @@ use std::time::Instant;
 use clap::Args;
 use indicatif::{MultiProgress, ProgressBar, ProgressDrawTarget, ProgressStyle};
 use mnemon_engine::eval::{evaluate, EvalSetup};
-use mnemon_engine::rundir::latest_checkpoint;
-use mnemon_engine::train::{train, Observer, Progress, Silent, TrainOptions};
+use mnemon_engine::rundir::{latest_checkpoint, RunState};
+use mnemon_engine::schedule::{self, Job, Watch};
+use mnemon_engine::train::{Observer, Progress, Silent, Summary};
 use mnemon_report::compare::{build_report, Report, ReportOptions, Threshold};
 use mnemon_report::runs::{read_metrics, RunRecord};
 use mnemon_spec::{Spec, StopWhen};
@@ -103,17 +104,6 @@ struct Planned {
     spec_toml: String,
 }
 
-/// Where a planned run stands on disk.
-#[derive(Debug, Clone, PartialEq)]
-enum State {
-    /// No folder yet.
-    New,
-    /// Finished (stopped by budget or target); reused as it is.
-    Done,
-    /// Has a checkpoint but no finishing record: resume it.
-    Resume,
-}
-
 pub fn run_compare(args: CompareArgs) -> Result<(), Failure> {
     if !args.from.is_empty() {
         return report_from(&args);
@@ -127,7 +117,7 @@ pub fn run_compare(args: CompareArgs) -> Result<(), Failure> {
     // Every argument is checked before the first run starts.
     let threshold = threshold_of(&args, &plan[0].spec)?;
     let out = plan_out(&args, &plan)?;
-    let stop = install_interrupt();
+    let stop = crate::train::install_interrupt();
     let started = Instant::now();
     let finished = train_all(&plan, &args, &stop)?;
     if stop.load(Ordering::SeqCst) {
@@ -249,7 +239,7 @@ fn plan_out(args: &CompareArgs, plan: &[Planned]) -> Result<PathBuf, Failure> {
         .collect();
     let text = serde_json::to_string_pretty(&json!({ "runs": entries })).expect("plain JSON");
     let path = out.join("plan.json");
-    mnemon_engine::rundir::write_atomic(&path, text.as_bytes())
+    mnemon_runs::write_atomic(&path, text.as_bytes())
         .map_err(|e| Failure::BadInput(format!("{}: cannot write: {e}", path.display())))?;
     Ok(out)
 }
@@ -389,67 +379,28 @@ fn parse_threshold(text: &str) -> Result<Threshold, Failure> {
     }
 }
 
-fn install_interrupt() -> Arc<AtomicBool> {
-    let stop = Arc::new(AtomicBool::new(false));
-    let flag = stop.clone();
-    // A second Ctrl-C exits at once.
-    let _ = ctrlc::set_handler(move || {
-        if flag.swap(true, Ordering::SeqCst) {
-            std::process::exit(130);
-        }
-    });
-    stop
-}
-
-/// Where a planned run stands, from its folder.
-fn state_of(dir: &Path) -> State {
-    if !dir.join("spec.toml").exists() {
-        return State::New;
-    }
-    let Some(_) = latest_checkpoint(dir) else {
-        return State::New;
-    };
-    let finished = mnemon_engine::rundir::read_metrics(&dir.join("metrics.jsonl"))
-        .ok()
-        .and_then(|(records, _)| {
-            records
-                .iter()
-                .rev()
-                .find(|r| r["kind"] == "end")
-                .map(|r| r["stopped_by"] == "budget" || r["stopped_by"] == "target")
-        })
-        .unwrap_or(false);
-    if finished {
-        State::Done
-    } else {
-        State::Resume
-    }
-}
-
-/// Threads one training takes: its actors and the learner.
-fn threads_per_run(spec: &Spec) -> usize {
-    spec.acting.actors + 1
-}
-
-/// Trains every planned run that is not finished, `parallel` at a time. Returns how
-/// many runs are finished.
+/// Trains every planned run that is not finished (`mnemon_engine::schedule`),
+/// `--parallel` at a time, with a bar per running run. Returns how many runs are
+/// finished.
 fn train_all(
     plan: &[Planned],
     args: &CompareArgs,
     stop: &Arc<AtomicBool>,
 ) -> Result<usize, Failure> {
-    let cores = std::thread::available_parallelism().map_or(2, |n| n.get());
-    let per_run = plan
+    let jobs: Vec<Job> = plan
         .iter()
-        .map(|p| threads_per_run(&p.spec))
-        .max()
-        .unwrap_or(2);
-    let parallel = args.parallel.unwrap_or((cores / per_run).max(1)).max(1);
-    let states: Vec<State> = plan.iter().map(|p| state_of(&p.dir)).collect();
-    let todo: Vec<usize> = (0..plan.len())
-        .filter(|&i| states[i] != State::Done)
+        .map(|p| Job {
+            dir: p.dir.clone(),
+            spec: p.spec.clone(),
+            spec_toml: p.spec_toml.clone(),
+        })
         .collect();
-    let reused = plan.len() - todo.len();
+    let parallel = args
+        .parallel
+        .unwrap_or_else(|| schedule::default_parallel(&jobs))
+        .max(1);
+    let states = schedule::states(&jobs);
+    let reused = states.iter().filter(|s| **s == RunState::Done).count();
     let show = !args.quiet && !args.json && std::io::stderr().is_terminal();
     let multi = MultiProgress::with_draw_target(if show {
         ProgressDrawTarget::stderr_with_hz(4)
@@ -462,7 +413,7 @@ fn train_all(
             plan.len(),
             plan.iter().map(|p| &p.variant).collect::<BTreeSet<_>>().len(),
             reused,
-            todo.len(),
+            plan.len() - reused,
             parallel
         );
     }
@@ -473,84 +424,89 @@ fn train_all(
             .progress_chars("=> "),
     );
     overall.set_position(reused as u64);
-    let next = AtomicUsize::new(0);
-    let failures: Mutex<Vec<(String, bool)>> = Mutex::new(Vec::new());
-    let done = AtomicUsize::new(reused);
-    std::thread::scope(|scope| {
-        for _ in 0..parallel.min(todo.len()) {
-            scope.spawn(|| loop {
-                if stop.load(Ordering::SeqCst) {
-                    break;
-                }
-                let k = next.fetch_add(1, Ordering::SeqCst);
-                let Some(&i) = todo.get(k) else { break };
-                let p = &plan[i];
-                let name = format!("{} seed {}", p.variant, p.seed);
-                let resume = states[i] == State::Resume;
-                if !resume && p.dir.exists() {
-                    // A folder with a spec but no checkpoint holds nothing to keep.
-                    let _ = std::fs::remove_dir_all(&p.dir);
-                }
-                if let Some(parent) = p.dir.parent() {
-                    let _ = std::fs::create_dir_all(parent);
-                }
-                let options = TrainOptions {
-                    resume: resume.then(|| p.dir.clone()),
-                    stop: stop.clone(),
-                    spec_toml: p.spec_toml.clone(),
-                    run_dir: (!resume).then(|| p.dir.clone()),
-                };
-                let bar = multi.insert_before(&overall, ProgressBar::new(0));
-                bar.set_style(
-                    ProgressStyle::with_template("  {prefix:30} {bar:20} {pos}/{len} {msg}")
-                        .expect("static template")
-                        .progress_chars("=> "),
-                );
-                bar.set_prefix(name.clone());
-                let result = if show {
-                    train(&p.spec, options, &mut RunBar { bar: bar.clone() })
-                } else {
-                    train(&p.spec, options, &mut Silent)
-                };
-                bar.finish_and_clear();
-                multi.remove(&bar);
-                match result {
-                    Ok(s) if s.stopped_by != "interrupt" => {
-                        done.fetch_add(1, Ordering::SeqCst);
-                        overall.inc(1);
-                        if !show && !args.quiet && !args.json {
-                            eprintln!(
-                                "  finished {name}: {} env steps, {:.0} s, stopped by {}",
-                                s.env_steps, s.seconds, s.stopped_by
-                            );
-                        }
-                    }
-                    Ok(_) => {}
-                    Err(e) => failures
-                        .lock()
-                        .expect("no panics while held")
-                        .push((format!("{name} ({}): {e}", p.dir.display()), e.is_input())),
-                }
-            });
-        }
-    });
+    let watch = Bars {
+        plan,
+        multi: &multi,
+        overall: &overall,
+        bars: Mutex::new(vec![None; plan.len()]),
+        show,
+        chatty: !args.quiet && !args.json,
+    };
+    let outcome = schedule::train_all(&jobs, &states, parallel, stop, &watch);
     overall.finish_and_clear();
-    let failures = failures.into_inner().expect("no panics while held");
-    if !failures.is_empty() {
+    if !outcome.failures.is_empty() {
+        let lines: Vec<String> = outcome
+            .failures
+            .iter()
+            .map(|(i, e)| {
+                let p = &plan[*i];
+                format!("{} seed {} ({}): {e}", p.variant, p.seed, p.dir.display())
+            })
+            .collect();
         let text = format!(
             "mnemon compare: {} run(s) failed:\n  {}\nfix the cause and run the same command again: finished runs are kept",
-            failures.len(),
-            failures.iter().map(|(m, _)| m.as_str()).collect::<Vec<_>>().join("\n  ")
+            lines.len(),
+            lines.join("\n  ")
         );
         // Bad input (a task that fails, a spec problem) exits 2; a failure inside a
         // run (a non-finite loss) exits 1.
-        return Err(if failures.iter().all(|(_, input)| *input) {
+        return Err(if outcome.failures.iter().all(|(_, e)| e.is_input()) {
             Failure::BadInput(text)
         } else {
             Failure::Internal(anyhow::anyhow!(text))
         });
     }
-    Ok(done.into_inner())
+    Ok(outcome.finished)
+}
+
+/// The comparison display: a bar per running run above the overall bar.
+struct Bars<'a> {
+    plan: &'a [Planned],
+    multi: &'a MultiProgress,
+    overall: &'a ProgressBar,
+    bars: Mutex<Vec<Option<ProgressBar>>>,
+    /// Bars are drawn (stderr is a terminal).
+    show: bool,
+    /// Lines are printed when runs finish (no bars, not quiet).
+    chatty: bool,
+}
+
+impl Watch for Bars<'_> {
+    fn started(&self, job: usize) -> Box<dyn Observer + '_> {
+        let p = &self.plan[job];
+        let bar = self.multi.insert_before(self.overall, ProgressBar::new(0));
+        bar.set_style(
+            ProgressStyle::with_template("  {prefix:30} {bar:20} {pos}/{len} {msg}")
+                .expect("static template")
+                .progress_chars("=> "),
+        );
+        bar.set_prefix(format!("{} seed {}", p.variant, p.seed));
+        self.bars.lock().expect("no panics while held")[job] = Some(bar.clone());
+        if self.show {
+            Box::new(RunBar { bar })
+        } else {
+            Box::new(Silent)
+        }
+    }
+
+    fn finished(&self, job: usize, result: &mnemon_engine::Result<Summary>) {
+        if let Some(bar) = self.bars.lock().expect("no panics while held")[job].take() {
+            bar.finish_and_clear();
+            self.multi.remove(&bar);
+        }
+        let Ok(s) = result else { return };
+        if !s.stopped_by.is_final() {
+            return;
+        }
+        self.overall.inc(1);
+        if !self.show && self.chatty {
+            let p = &self.plan[job];
+            eprintln!(
+                "  finished {} seed {}: {} env steps, {:.0} s, stopped by {}",
+                p.variant, p.seed, s.env_steps, s.seconds, s.stopped_by
+            );
+        }
+    }
 }
 
 /// Progress of one run inside the comparison display.
@@ -684,7 +640,7 @@ fn write_report(
         .map_err(|e| Failure::BadInput(format!("mnemon compare: {e}")))?;
     let write = |name: &str, bytes: &[u8]| -> Result<(), Failure> {
         let path = out.join(name);
-        mnemon_engine::rundir::write_atomic(&path, bytes)
+        mnemon_runs::write_atomic(&path, bytes)
             .map_err(|e| Failure::BadInput(format!("{}: cannot write: {e}", path.display())))
     };
     write("report.md", report.to_markdown().as_bytes())?;

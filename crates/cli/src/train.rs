@@ -7,8 +7,8 @@ use std::time::Duration;
 
 use clap::Args;
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use mnemon_engine::eval::{evaluate, EvalSetup};
-use mnemon_engine::train::{train, Observer, Progress, Silent, TrainOptions};
+use mnemon_engine::eval::{evaluate, exact_optimum, EvalSetup};
+use mnemon_engine::train::{train, Observer, Progress, Silent, StopReason, Summary, TrainOptions};
 use mnemon_spec::Spec;
 use serde_json::json;
 
@@ -133,7 +133,39 @@ impl Observer for Bar {
 }
 
 pub fn run_train(args: TrainArgs) -> Result<(), Failure> {
-    let (spec, spec_toml) = match (&args.resume, &args.spec) {
+    let (spec, spec_toml) = train_spec(&args)?;
+    let options = TrainOptions {
+        resume: args.resume.clone(),
+        stop: install_interrupt(),
+        spec_toml,
+        run_dir: None,
+    };
+    let summary = if args.quiet || args.json {
+        train(&spec, options, &mut Silent)
+    } else {
+        train_with_bar(&spec, options)
+    }
+    .map_err(engine_failure)?;
+    if args.json {
+        println!("{}", summary_json(&summary));
+    } else if !args.quiet {
+        print_summary(&summary);
+    }
+    if summary.stopped_by == StopReason::Interrupt {
+        if !args.json {
+            eprintln!(
+                "interrupted; the run continues with: mnemon train --resume {}",
+                summary.run_dir.display()
+            );
+        }
+        return Err(Failure::Interrupted);
+    }
+    Ok(())
+}
+
+/// The spec to train: the run's own (with `--set`s) for `--resume`, else the file's.
+fn train_spec(args: &TrainArgs) -> Result<(Spec, String), Failure> {
+    match (&args.resume, &args.spec) {
         (Some(dir), _) => {
             let path = dir.join("spec.toml");
             let text = std::fs::read_to_string(&path).map_err(|e| {
@@ -142,97 +174,86 @@ pub fn run_train(args: TrainArgs) -> Result<(), Failure> {
                     path.display()
                 ))
             })?;
-            load_spec_text(&text, &path.display().to_string(), &args.sets)?
+            load_spec_text(&text, &path.display().to_string(), &args.sets)
         }
-        (None, Some(path)) => load_spec(path, &args.sets)?,
-        (None, None) => {
-            return Err(Failure::BadInput(
-                "mnemon train: give a spec file, or --resume RUN_DIR".into(),
-            ))
-        }
-    };
-    let stop = Arc::new(AtomicBool::new(false));
-    {
-        let stop = stop.clone();
-        // A second Ctrl-C exits at once.
-        let _ = ctrlc::set_handler(move || {
-            if stop.swap(true, Ordering::SeqCst) {
-                std::process::exit(130);
-            }
-        });
+        (None, Some(path)) => load_spec(path, &args.sets),
+        (None, None) => Err(Failure::BadInput(
+            "mnemon train: give a spec file, or --resume RUN_DIR".into(),
+        )),
     }
-    let options = TrainOptions {
-        resume: args.resume.clone(),
-        stop,
-        spec_toml,
-        run_dir: None,
-    };
-    let summary = if args.quiet || args.json {
-        train(&spec, options, &mut Silent)
-    } else {
-        let bar = ProgressBar::with_draw_target(Some(0), ProgressDrawTarget::stderr_with_hz(4));
-        bar.set_style(
-            ProgressStyle::with_template(
-                "{spinner} [{elapsed_precise}] {bar:30} {pos}/{len} {msg} (eta {eta})",
-            )
-            .expect("static template")
-            .progress_chars("=> "),
-        );
-        bar.enable_steady_tick(Duration::from_millis(250));
-        eprintln!("training {} on {} ...", spec.name, spec.task.kind);
-        let mut observer = Bar { bar: bar.clone() };
-        let r = train(&spec, options, &mut observer);
-        bar.finish_and_clear();
-        r
-    }
-    .map_err(engine_failure)?;
-
-    let eval = summary.last_eval.as_ref();
-    if args.json {
-        let out = json!({
-            "run_dir": summary.run_dir,
-            "checkpoint": summary.checkpoint,
-            "env_steps": summary.env_steps,
-            "learner_steps": summary.learner_steps,
-            "seconds": summary.seconds,
-            "stopped_by": summary.stopped_by,
-            "target_reached_at": summary.target_reached_at,
-            "eval_return": eval.map(|e| e.mean_return()),
-            "eval_success_rate": eval.and_then(|e| e.success_rate()),
-            "phases": {
-                "acting": summary.phases.acting, "learning": summary.phases.learning,
-                "replay": summary.phases.replay, "evaluation": summary.phases.evaluation,
-                "checkpoints": summary.phases.checkpoints,
-                "waiting_for_learner": summary.phases.waiting_for_learner,
-                "waiting_for_actors": summary.phases.waiting_for_actors,
-            }
-        });
-        println!("{out}");
-    } else if !args.quiet {
-        let ph = &summary.phases;
-        eprintln!(
-            "stopped by {} after {} env steps, {} updates, {:.1} s",
-            summary.stopped_by, summary.env_steps, summary.learner_steps, summary.seconds
-        );
-        if let Some(e) = eval {
-            match e.success_rate() {
-                Some(s) => eprintln!(
-                    "last greedy evaluation: return {:.3}, success {:.1}%",
-                    e.mean_return(),
-                    s * 100.0
-                ),
-                None => eprintln!("last greedy evaluation: return {:.3}", e.mean_return()),
-            }
-        }
-        eprintln!(
-            "time by phase (s): acting {:.1}, learning {:.1}, replay {:.1}, evaluation {:.1}, checkpoints {:.1}; waiting for learner {:.1}, for actors {:.1}",
-            ph.acting, ph.learning, ph.replay, ph.evaluation, ph.checkpoints, ph.waiting_for_learner, ph.waiting_for_actors
-        );
-        eprintln!("checkpoint: {}", summary.checkpoint.display());
-    }
-    Ok(())
 }
 
+/// A flag that the first Ctrl-C sets (the run stops after its round with a final
+/// checkpoint); a second Ctrl-C exits at once with 130.
+pub(crate) fn install_interrupt() -> Arc<AtomicBool> {
+    let stop = Arc::new(AtomicBool::new(false));
+    let flag = stop.clone();
+    let _ = ctrlc::set_handler(move || {
+        if flag.swap(true, Ordering::SeqCst) {
+            std::process::exit(130);
+        }
+    });
+    stop
+}
+
+fn train_with_bar(spec: &Spec, options: TrainOptions) -> mnemon_engine::Result<Summary> {
+    let bar = ProgressBar::with_draw_target(Some(0), ProgressDrawTarget::stderr_with_hz(4));
+    bar.set_style(
+        ProgressStyle::with_template(
+            "{spinner} [{elapsed_precise}] {bar:30} {pos}/{len} {msg} (eta {eta})",
+        )
+        .expect("static template")
+        .progress_chars("=> "),
+    );
+    bar.enable_steady_tick(Duration::from_millis(250));
+    eprintln!("training {} on {} ...", spec.name, spec.task.kind);
+    let mut observer = Bar { bar: bar.clone() };
+    let r = train(spec, options, &mut observer);
+    bar.finish_and_clear();
+    r
+}
+
+/// `--json`: the summary as one object.
+fn summary_json(summary: &Summary) -> serde_json::Value {
+    let eval = summary.last_eval.as_ref();
+    json!({
+        "run_dir": summary.run_dir,
+        "checkpoint": summary.checkpoint,
+        "env_steps": summary.env_steps,
+        "learner_steps": summary.learner_steps,
+        "seconds": summary.seconds,
+        "stopped_by": summary.stopped_by,
+        "target_reached_at": summary.target_reached_at,
+        "eval_return": eval.map(|e| e.mean_return()),
+        "eval_success_rate": eval.and_then(|e| e.success_rate()),
+        "phases": summary.phases,
+    })
+}
+
+fn print_summary(summary: &Summary) {
+    let ph = &summary.phases;
+    eprintln!(
+        "stopped by {} after {} env steps, {} updates, {:.1} s",
+        summary.stopped_by, summary.env_steps, summary.learner_steps, summary.seconds
+    );
+    if let Some(e) = &summary.last_eval {
+        match e.success_rate() {
+            Some(s) => eprintln!(
+                "last greedy evaluation: return {:.3}, success {:.1}%",
+                e.mean_return(),
+                s * 100.0
+            ),
+            None => eprintln!("last greedy evaluation: return {:.3}", e.mean_return()),
+        }
+    }
+    eprintln!(
+        "time by phase (s): acting {:.1}, learning {:.1}, replay {:.1}, evaluation {:.1}, checkpoints {:.1}; waiting for learner {:.1}, for actors {:.1}",
+        ph.acting, ph.learning, ph.replay, ph.evaluation, ph.checkpoints, ph.waiting_for_learner, ph.waiting_for_actors
+    );
+    eprintln!("checkpoint: {}", summary.checkpoint.display());
+}
+
+/// Bad input (spec, task, files, checkpoints) exits 2; anything else 1.
 pub(crate) fn engine_failure(e: mnemon_engine::Error) -> Failure {
     if e.is_input() {
         Failure::BadInput(format!("mnemon: {e}"))
@@ -262,10 +283,10 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
         max_steps: 0,
     };
     mnemon_engine::learner::check_task_fits(&spec, &loaded.params).map_err(engine_failure)?;
-    let report = evaluate(&spec.task, &spec.agent, &loaded.params, &setup)
-        .map_err(|e| Failure::BadInput(format!("mnemon: task failed: {e}")))?;
+    let report =
+        evaluate(&spec.task, &spec.agent, &loaded.params, &setup).map_err(engine_failure)?;
     let (lo, hi) = report.ci95();
-    let optimum = exact_optimum(&spec);
+    let optimum = exact_optimum(&spec.task, spec.learn.discount);
     if args.json {
         println!(
             "{}",
@@ -278,7 +299,7 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
                 "mean_discounted_return": report.mean_discounted(),
                 "success_rate": report.success_rate(),
                 "mean_length": report.mean_length(),
-                "optimum_discounted_return": optimum,
+                "optimum_discounted_return": optimum.map(|o| o.value),
                 "seed": args.seed,
                 "epsilon": args.epsilon,
             })
@@ -302,8 +323,10 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
         );
         if let Some(opt) = optimum {
             println!(
-                "optimum      {opt:.4}  (exact discounted optimum by belief-space dynamic programming; the agent reaches {:.1}% of it)",
-                100.0 * report.mean_discounted() / opt
+                "optimum      {:.4}  ({}; the agent reaches {:.1}% of it)",
+                opt.value,
+                opt.method,
+                100.0 * report.mean_discounted() / opt.value
             );
         }
         if let Some(s) = report.success_rate() {
@@ -312,19 +335,4 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
         println!("length       {:.1} steps", report.mean_length());
     }
     Ok(())
-}
-
-/// The exact optimal discounted return of the spec's task, where mnemon can compute it
-/// (the Tiger problem, by belief-space dynamic programming).
-fn exact_optimum(spec: &Spec) -> Option<f64> {
-    if spec.task.kind != "tiger" {
-        return None;
-    }
-    let t = &spec.task;
-    Some(mnemon_envs::tiger::optimal_value(
-        t.int("horizon")? as usize,
-        spec.learn.discount,
-        t.float("listen_accuracy")?,
-        t.bool("end_on_open")?,
-    ))
 }

@@ -148,3 +148,38 @@ fn resuming_a_run_that_used_its_budget_says_how_to_extend_it() {
         String::from_utf8_lossy(&more.stderr)
     );
 }
+
+#[test]
+fn resuming_a_run_that_used_its_time_budget_runs_nothing() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = tmp.path().display().to_string();
+    let done = mnemon()
+        .args(["train", &spec_path(), "--quiet"])
+        .args(["--set", &format!("run.out=\"{out}\"")])
+        .args(["--set", "run.budget=\"1s\"", "--set", "learn.warmup=500"])
+        .output()
+        .unwrap();
+    assert!(
+        done.status.success(),
+        "{}",
+        String::from_utf8_lossy(&done.stderr)
+    );
+    let run = tmp.path().join("tmaze-none/seed1-001");
+    let metrics = std::fs::read_to_string(run.join("metrics.jsonl")).unwrap();
+    let again = mnemon()
+        .args(["train", "--quiet", "--resume"])
+        .arg(&run)
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&again.stderr);
+    assert_eq!(again.status.code(), Some(2), "{stderr}");
+    assert!(
+        stderr.contains("used its budget") && stderr.contains("seconds"),
+        "{stderr}"
+    );
+    assert_eq!(
+        std::fs::read_to_string(run.join("metrics.jsonl")).unwrap(),
+        metrics,
+        "no round ran"
+    );
+}

@@ -14,7 +14,9 @@ use mnemon_nets::{ActorNet, Params};
 use rand::rngs::StdRng;
 use rand::SeedableRng;
 
+use crate::error::Result;
 use crate::explore;
+use crate::seeds;
 use crate::sequence::{Cutter, Sequence, StepEnd, NO_ACTION};
 
 /// The recurrent inputs and state of a batch of lanes between steps.
@@ -112,7 +114,7 @@ impl Actor {
         lanes: Lanes,
         params: &Params,
         setup: ActorSetup,
-    ) -> Result<Self, mnemon_nets::Error> {
+    ) -> std::result::Result<Self, mnemon_nets::Error> {
         let net = ActorNet::from_params(&setup.agent, setup.shape, params)?;
         let count = lanes.count();
         let obs_len = lanes.obs_len();
@@ -149,11 +151,15 @@ impl Actor {
         round: u64,
         steps: usize,
         params: &Arc<Params>,
-    ) -> Result<RoundOutput, String> {
+    ) -> Result<RoundOutput> {
         let started = Instant::now();
-        self.net.refresh(params).map_err(|e| e.to_string())?;
+        self.net.refresh(params)?;
         // A fresh stream per round, so a resumed run explores as the original did.
-        let mut rng = StdRng::seed_from_u64(mnemon_envs::episode_seed(self.seed, 0xAC70, round));
+        let mut rng = StdRng::seed_from_u64(mnemon_envs::episode_seed(
+            self.seed,
+            seeds::ACTOR_ROUND,
+            round,
+        ));
         let mut out = RoundOutput::default();
         let count = self.lanes.count();
         let obs_len = self.lanes.obs_len();
@@ -161,24 +167,18 @@ impl Actor {
         for _ in 0..steps {
             self.obs_before.copy_from_slice(self.lanes.obs());
             self.state_before.copy_from_slice(&self.memory.state);
-            self.net
-                .step(
-                    &self.obs_before,
-                    &self.memory.prev_action,
-                    &self.memory.prev_reward,
-                    &mut self.memory.state,
-                    &mut self.q,
-                )
-                .map_err(|e| e.to_string())?;
+            self.net.step(
+                &self.obs_before,
+                &self.memory.prev_action,
+                &self.memory.prev_reward,
+                &mut self.memory.state,
+                &mut self.q,
+            )?;
             for lane in 0..count {
                 let q = &self.q[lane * self.actions_count..(lane + 1) * self.actions_count];
                 self.actions[lane] = explore::choose(q, self.epsilons[lane], &mut rng);
             }
-            let results = self
-                .lanes
-                .step(&self.actions)
-                .map_err(|e| e.to_string())?
-                .to_vec();
+            let results = self.lanes.step(&self.actions)?.to_vec();
             for (lane, r) in results.iter().enumerate() {
                 let obs = &self.obs_before[lane * obs_len..(lane + 1) * obs_len];
                 let state = &self.state_before[lane * state_len..(lane + 1) * state_len];

@@ -205,7 +205,7 @@ impl Learner {
             replay,
             rng: StdRng::seed_from_u64(mnemon_envs::episode_seed(
                 spec.run.seed,
-                0x1EA2,
+                crate::seeds::LEARNER_SAMPLING,
                 learner_steps,
             )),
             learner_steps,

@@ -11,21 +11,20 @@
 //! complete line per write and flushed, so a run killed at any moment leaves at most a
 //! partial last line, which `read_metrics` skips.
 
-use std::fs::{self, File, OpenOptions};
-use std::io::{self, BufRead, BufReader, Write};
+use std::fs;
+use std::io;
 use std::path::{Path, PathBuf};
+
+use mnemon_runs::{read_metrics, MetricsLog, Record};
 
 use crate::error::{Error, Result};
 
-/// Writes `bytes` to `path` atomically (temp file, fsync, rename).
-pub fn write_atomic(path: &Path, bytes: &[u8]) -> io::Result<()> {
-    mnemon_nets::checkpoint::write_atomic(path, bytes).map_err(|e| io::Error::other(e.to_string()))
-}
+pub use mnemon_runs::write_atomic;
 
 /// An open run folder.
 pub struct RunDir {
     root: PathBuf,
-    metrics: File,
+    metrics: MetricsLog,
 }
 
 impl RunDir {
@@ -58,30 +57,14 @@ impl RunDir {
                 root.display()
             )));
         }
-        write_atomic(&spec_path, spec_toml.as_bytes()).map_err(|e| Error::io(&spec_path, e))?;
+        write_atomic(&spec_path, spec_toml.as_bytes())?;
         Self::open(root)
     }
 
-    /// Opens an existing run folder for appending (resume).
+    /// Opens an existing run folder for appending (resume); a partial last metrics line
+    /// (a run killed mid-write) is cut off first.
     pub fn open(root: PathBuf) -> Result<Self> {
-        let path = root.join("metrics.jsonl");
-        // A run killed mid-line leaves a partial last line: cut it off before appending
-        // so the file stays valid JSON lines.
-        if let Ok(text) = fs::read(&path) {
-            if !text.is_empty() && text.last() != Some(&b'\n') {
-                let keep = text.iter().rposition(|&b| b == b'\n').map_or(0, |i| i + 1);
-                let f = OpenOptions::new()
-                    .write(true)
-                    .open(&path)
-                    .map_err(|e| Error::io(&path, e))?;
-                f.set_len(keep as u64).map_err(|e| Error::io(&path, e))?;
-            }
-        }
-        let metrics = OpenOptions::new()
-            .create(true)
-            .append(true)
-            .open(&path)
-            .map_err(|e| Error::io(&path, e))?;
+        let metrics = MetricsLog::open(&root.join("metrics.jsonl"))?;
         Ok(RunDir { root, metrics })
     }
 
@@ -101,15 +84,9 @@ impl RunDir {
             .join(format!("step-{env_steps:010}.safetensors"))
     }
 
-    /// Appends one metrics record (a JSON object) as one line.
-    pub fn log(&mut self, record: &serde_json::Value) -> Result<()> {
-        let mut line = serde_json::to_string(record).map_err(|e| Error::Internal(e.to_string()))?;
-        line.push('\n');
-        let path = self.root.join("metrics.jsonl");
-        self.metrics
-            .write_all(line.as_bytes())
-            .and_then(|_| self.metrics.flush())
-            .map_err(|e| Error::io(&path, e))
+    /// Appends one record to `metrics.jsonl` as one line.
+    pub fn log(&mut self, record: &Record) -> Result<()> {
+        Ok(self.metrics.append(record)?)
     }
 }
 
@@ -132,56 +109,77 @@ pub fn latest_checkpoint(run: &Path) -> Option<PathBuf> {
     found.pop().map(|(_, p)| p)
 }
 
-/// Reads a metrics file, skipping (and counting) lines that are not JSON objects, such
-/// as the partial last line of a killed run.
-pub fn read_metrics(path: &Path) -> Result<(Vec<serde_json::Value>, usize)> {
-    let f = File::open(path).map_err(|e| Error::io(path, e))?;
-    let mut good = Vec::new();
-    let mut bad = 0;
-    for line in BufReader::new(f).lines() {
-        let line = line.map_err(|e| Error::io(path, e))?;
-        if line.trim().is_empty() {
-            continue;
-        }
-        match serde_json::from_str::<serde_json::Value>(&line) {
-            Ok(v) if v.is_object() => good.push(v),
-            _ => bad += 1,
-        }
+/// Where a run folder stands on disk.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum RunState {
+    /// No run yet: no spec, or no checkpoint to go on from.
+    New,
+    /// Finished (its last record says it stopped by budget or target).
+    Done,
+    /// Has a checkpoint but did not finish (killed or interrupted): resume it.
+    Unfinished,
+}
+
+/// Where the run folder `dir` stands: new, finished, or to be resumed.
+pub fn run_state(dir: &Path) -> RunState {
+    if !dir.join("spec.toml").exists() || latest_checkpoint(dir).is_none() {
+        return RunState::New;
     }
-    Ok((good, bad))
+    let stopped = read_metrics(&dir.join("metrics.jsonl"))
+        .ok()
+        .and_then(|m| m.stopped_by());
+    match stopped {
+        Some(reason) if reason.is_final() => RunState::Done,
+        _ => RunState::Unfinished,
+    }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+    use mnemon_runs::StopReason;
+
+    fn end(reason: StopReason) -> Record {
+        Record::End(mnemon_runs::EndRecord {
+            env_steps: 10,
+            learner_steps: 1,
+            wall_seconds: 1.0,
+            stopped_by: reason,
+            target_reached_at: None,
+            phases: Default::default(),
+        })
+    }
 
     #[test]
-    fn run_ids_do_not_collide_and_metrics_survive_a_partial_line() {
+    fn run_ids_do_not_collide_and_states_follow_the_last_record() {
         let tmp = tempfile::tempdir().unwrap();
         let a = RunDir::create(tmp.path(), "t", 3, "name = \"t\"\n").unwrap();
         let b = RunDir::create(tmp.path(), "t", 3, "name = \"t\"\n").unwrap();
         assert_ne!(a.root(), b.root());
         let root = a.root().to_path_buf();
         drop(a);
-        let mut r = RunDir::open(root.clone()).unwrap();
-        r.log(&serde_json::json!({"env_steps": 1})).unwrap();
-        drop(r);
-        // Simulate a kill mid-write.
-        let mut f = OpenOptions::new()
-            .append(true)
-            .open(root.join("metrics.jsonl"))
-            .unwrap();
-        f.write_all(b"{\"env_steps\": 2, \"los").unwrap();
-        drop(f);
-        let (good, bad) = read_metrics(&root.join("metrics.jsonl")).unwrap();
-        assert_eq!((good.len(), bad), (1, 1));
-        let mut r = RunDir::open(root.clone()).unwrap();
-        r.log(&serde_json::json!({"env_steps": 3})).unwrap();
-        let (good, bad) = read_metrics(&root.join("metrics.jsonl")).unwrap();
+        assert_eq!(run_state(&root), RunState::New, "no checkpoint yet");
+        write_atomic(
+            &RunDir::open(root.clone()).unwrap().checkpoint_path(10),
+            b"x",
+        )
+        .unwrap();
         assert_eq!(
-            (good.len(), bad),
-            (2, 0),
-            "partial line cut before appending"
+            run_state(&root),
+            RunState::Unfinished,
+            "killed: no end record"
+        );
+        let mut r = RunDir::open(root.clone()).unwrap();
+        r.log(&end(StopReason::Interrupt)).unwrap();
+        assert_eq!(run_state(&root), RunState::Unfinished);
+        r.log(&Record::Train(Default::default())).unwrap();
+        r.log(&end(StopReason::Target)).unwrap();
+        assert_eq!(run_state(&root), RunState::Done);
+        r.log(&Record::Train(Default::default())).unwrap();
+        assert_eq!(
+            run_state(&root),
+            RunState::Unfinished,
+            "resumed after its end"
         );
     }
 

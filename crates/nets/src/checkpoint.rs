@@ -9,8 +9,7 @@
 //! Writes are atomic: a temp file in the same folder, fsync, rename, fsync of the folder.
 
 use std::collections::{BTreeMap, HashMap};
-use std::io::Write;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 use safetensors::tensor::{Dtype, TensorView};
 
@@ -183,34 +182,13 @@ pub fn save(
     write_atomic(path, &bytes)
 }
 
-/// Writes `bytes` to `path` through a temp file in the same folder, fsync and rename.
+/// Writes `bytes` to `path` atomically (`mnemon_runs::write_atomic`: temp file in the
+/// same folder, fsync, rename).
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
-    let dir = path
-        .parent()
-        .filter(|p| !p.as_os_str().is_empty())
-        .unwrap_or(Path::new("."));
-    let name = path
-        .file_name()
-        .ok_or_else(|| bad(path, "not a file path"))?;
-    let tmp: PathBuf = dir.join(format!(
-        ".{}.tmp-{}",
-        name.to_string_lossy(),
-        std::process::id()
-    ));
-    let result = (|| {
-        let mut f = std::fs::File::create(&tmp).map_err(|e| io_err(&tmp, e))?;
-        f.write_all(bytes).map_err(|e| io_err(&tmp, e))?;
-        f.sync_all().map_err(|e| io_err(&tmp, e))?;
-        std::fs::rename(&tmp, path).map_err(|e| io_err(path, e))?;
-        if let Ok(d) = std::fs::File::open(dir) {
-            let _ = d.sync_all();
-        }
-        Ok(())
-    })();
-    if result.is_err() {
-        let _ = std::fs::remove_file(&tmp);
-    }
-    result
+    mnemon_runs::write_atomic(path, bytes).map_err(|e| match e {
+        mnemon_runs::Error::Io { path, source } => io_err(&path, source),
+        other => bad(path, other.to_string()),
+    })
 }
 
 /// Reads a checkpoint, checking format, version and checksum.

@@ -9,8 +9,7 @@
 //! colour-vision deficiencies. Every file is written atomically: drawn to a temporary
 //! file in the same folder, then renamed over the target.
 
-use std::path::{Path, PathBuf};
-use std::sync::atomic::{AtomicUsize, Ordering};
+use std::path::Path;
 use std::sync::OnceLock;
 
 use image::ImageEncoder;
@@ -344,25 +343,12 @@ where
     write_atomic(png, &encoded)
 }
 
-/// Writes `bytes` to a temporary file beside `path`, then renames it over `path`, so a
-/// reader never sees half a file.
+/// Writes `bytes` atomically (`mnemon_runs::write_atomic`), so a reader never sees
+/// half a file.
 fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
-    static COUNTER: AtomicUsize = AtomicUsize::new(0);
-    let name = path
-        .file_name()
-        .map_or("plot".into(), |n| n.to_string_lossy().into_owned());
-    let tmp: PathBuf = path.with_file_name(format!(
-        ".{name}.{}-{}.tmp",
-        std::process::id(),
-        COUNTER.fetch_add(1, Ordering::Relaxed)
-    ));
-    if let Err(e) = std::fs::write(&tmp, bytes) {
-        let _ = std::fs::remove_file(&tmp);
-        return Err(Error::io(path, e));
-    }
-    std::fs::rename(&tmp, path).map_err(|e| {
-        let _ = std::fs::remove_file(&tmp);
-        Error::io(path, e)
+    mnemon_runs::write_atomic(path, bytes).map_err(|e| match e {
+        mnemon_runs::Error::Io { path, source } => Error::Io { path, source },
+        other => Error::io(path, std::io::Error::other(other.to_string())),
     })
 }
 
@@ -706,6 +692,7 @@ fn draw_final<DB: DrawingBackend>(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use std::path::PathBuf;
 
     fn run(variant: &str, seed: u64, curve: &[(u64, f64)], env_steps: u64) -> RunRecord {
         RunRecord {

@@ -1,12 +1,13 @@
 //! Run records: what the report knows about one training run. [`read_metrics`] reads a
-//! run's `metrics.jsonl` (one JSON object a line, written by training) into the learning
-//! curve and the end record; [`RunRecord`] joins that with the final scores, which the
-//! caller gets by evaluating the run's final checkpoint. Nothing here trains or evaluates.
+//! run's `metrics.jsonl` (the typed records of `mnemon-runs`, written by training) into
+//! the learning curve and the end record; [`RunRecord`] joins that with the final
+//! scores, which the caller gets by evaluating the run's final checkpoint. Nothing here
+//! trains or evaluates.
 
 use std::path::{Path, PathBuf};
 
+use mnemon_runs::{Record, StopReason};
 use serde::Serialize;
-use serde_json::Value;
 
 use crate::error::{Error, Result};
 
@@ -31,8 +32,8 @@ pub struct RunEnd {
     pub env_steps: u64,
     /// Training wall-clock seconds at the end.
     pub wall_seconds: f64,
-    /// Why training stopped: `budget`, `target` or `interrupt`.
-    pub stopped_by: String,
+    /// Why training stopped.
+    pub stopped_by: StopReason,
 }
 
 /// What [`read_metrics`] found in a `metrics.jsonl`.
@@ -84,60 +85,40 @@ pub struct RunRecord {
 /// # Errors
 /// [`Error::Io`] naming `path` when the file cannot be read.
 pub fn read_metrics(path: &Path) -> Result<MetricsFile> {
-    let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
-    let mut out = MetricsFile::default();
-    for (i, line) in bytes.split(|&b| b == b'\n').enumerate() {
-        if line.iter().all(u8::is_ascii_whitespace) {
-            continue;
-        }
-        match parse_line(line) {
-            Some(Line::Eval(p)) => {
-                while out.curve.last().is_some_and(|q| q.env_steps >= p.env_steps) {
+    let metrics = mnemon_runs::read_metrics(path).map_err(|e| match e {
+        mnemon_runs::Error::Io { path, source } => Error::Io { path, source },
+        other => Error::io(path, std::io::Error::other(other.to_string())),
+    })?;
+    let mut out = MetricsFile {
+        skipped_lines: metrics.skipped_lines,
+        ..Default::default()
+    };
+    for record in metrics.records {
+        match record {
+            Record::Eval(e) => {
+                while out.curve.last().is_some_and(|q| q.env_steps >= e.env_steps) {
                     out.curve.pop();
                 }
-                out.curve.push(p);
+                out.curve.push(CurvePoint {
+                    env_steps: e.env_steps,
+                    wall_seconds: e.wall_seconds,
+                    eval_return: e.eval_return,
+                    eval_success: e.eval_success_rate,
+                });
                 out.end = None;
             }
-            Some(Line::End(e)) => out.end = Some(e),
+            Record::End(e) => {
+                out.end = Some(RunEnd {
+                    env_steps: e.env_steps,
+                    wall_seconds: e.wall_seconds,
+                    stopped_by: e.stopped_by,
+                })
+            }
             // Training went on after an end record: the run was resumed.
-            Some(Line::Other) => out.end = None,
-            None => out.skipped_lines.push(i + 1),
+            Record::Train(_) | Record::Unknown => out.end = None,
         }
     }
     Ok(out)
-}
-
-enum Line {
-    Eval(CurvePoint),
-    End(RunEnd),
-    Other,
-}
-
-fn parse_line(line: &[u8]) -> Option<Line> {
-    let v: Value = serde_json::from_slice(line).ok()?;
-    let obj = v.as_object()?;
-    let env_steps = || obj.get("env_steps")?.as_u64();
-    let wall_seconds = || obj.get("wall_seconds")?.as_f64();
-    match obj.get("kind")?.as_str()? {
-        "eval" => {
-            let eval_success = match obj.get("eval_success_rate") {
-                None | Some(Value::Null) => None,
-                Some(v) => Some(v.as_f64()?),
-            };
-            Some(Line::Eval(CurvePoint {
-                env_steps: env_steps()?,
-                wall_seconds: wall_seconds()?,
-                eval_return: obj.get("eval_return")?.as_f64()?,
-                eval_success,
-            }))
-        }
-        "end" => Some(Line::End(RunEnd {
-            env_steps: env_steps()?,
-            wall_seconds: wall_seconds()?,
-            stopped_by: obj.get("stopped_by")?.as_str()?.to_string(),
-        })),
-        _ => Some(Line::Other),
-    }
 }
 
 #[cfg(test)]
@@ -218,7 +199,7 @@ mod tests {
             .collect();
         assert_eq!(got, vec![(1000, 1.0), (2000, 20.0), (3000, 30.0)]);
         let end = m.end.unwrap();
-        assert_eq!((end.env_steps, end.stopped_by.as_str()), (3000, "budget"));
+        assert_eq!((end.env_steps, end.stopped_by), (3000, StopReason::Budget));
         assert_eq!(end.wall_seconds, 9.5);
         assert!(m.skipped_lines.is_empty());
     }
