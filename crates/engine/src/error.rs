@@ -17,9 +17,6 @@ pub enum Error {
     /// task refuses).
     #[error("task failed: {0}")]
     TaskFailed(#[source] Box<mnemon_envs::TaskError>),
-    /// A task failure said in words.
-    #[error("task failed: {0}")]
-    Task(String),
     /// The network side failed: a checkpoint that cannot be read, a shape that does not
     /// fit, a tensor operation.
     #[error("{0}")]
@@ -69,7 +66,7 @@ impl Error {
     /// rather than mnemon's: the binary exits 2 for these and 1 for the rest.
     pub fn is_input(&self) -> bool {
         match self {
-            Error::Input(_) | Error::Task(_) | Error::TaskFailed(_) | Error::Io { .. } => true,
+            Error::Input(_) | Error::TaskFailed(_) | Error::Io { .. } => true,
             Error::Records(e) => !matches!(e, mnemon_runs::Error::Encode(_)),
             Error::Nets(e) => matches!(
                 **e,

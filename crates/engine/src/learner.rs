@@ -131,7 +131,7 @@ pub struct LoadedParams {
 
 /// Reads a checkpoint's weights and spec.
 pub fn load_params(path: &Path) -> Result<LoadedParams> {
-    let loaded = mnemon_nets::checkpoint::load(path).map_err(|e| Error::Input(e.to_string()))?;
+    let loaded = mnemon_nets::checkpoint::load(path)?;
     Ok(LoadedParams {
         params: loaded.online,
         spec_toml: loaded.meta.spec_toml,
@@ -140,11 +140,10 @@ pub fn load_params(path: &Path) -> Result<LoadedParams> {
 
 /// Checks that a checkpoint's network fits the (possibly overridden) spec's task.
 pub fn check_task_fits(spec: &Spec, params: &Params) -> Result<()> {
-    let lanes =
-        mnemon_envs::Lanes::new(&spec.task, 1, 0).map_err(|e| Error::Task(e.to_string()))?;
+    let lanes = mnemon_envs::Lanes::new(&spec.task, 1, 0)?;
     let shape = net_shape(lanes.task());
-    let net = Network::new(&spec.agent, shape, 0).map_err(|e| Error::Internal(e.to_string()))?;
-    let fresh = net.snapshot().map_err(|e| Error::Internal(e.to_string()))?;
+    let net = Network::new(&spec.agent, shape, 0)?;
+    let fresh = net.snapshot()?;
     for (name, want, _) in &fresh.tensors {
         match params.get(name) {
             Some((got, _)) if got == want.as_slice() => {}
@@ -168,7 +167,7 @@ pub fn check_task_fits(spec: &Spec, params: &Params) -> Result<()> {
 }
 
 fn nets(e: mnemon_nets::Error) -> Error {
-    Error::Internal(e.to_string())
+    Error::from(e)
 }
 
 impl Learner {
@@ -218,8 +217,7 @@ impl Learner {
     /// A learner restored from a checkpoint (weights, target, optimizer, counters); the
     /// replay starts empty and refills.
     pub fn resume(spec: &Spec, shape: NetShape, path: &Path) -> Result<(Self, CheckpointMeta)> {
-        let loaded =
-            mnemon_nets::checkpoint::load(path).map_err(|e| Error::Input(e.to_string()))?;
+        let loaded = mnemon_nets::checkpoint::load(path)?;
         let mut online = Network::new(&spec.agent, shape, spec.run.seed).map_err(nets)?;
         let mut target = online.try_clone().map_err(nets)?;
         let mut opt = Optimizer::new(&online, spec.learn.adam_epsilon, spec.learn.clip);
@@ -272,7 +270,7 @@ impl Learner {
             extra,
         };
         mnemon_nets::checkpoint::save(path, &self.online, Some(&self.target), Some(&self.opt), &m)
-            .map_err(|e| Error::io(path, std::io::Error::other(e.to_string())))
+            .map_err(Error::from)
     }
 
     /// One round: insert the new sequences, then update until the replay ratio is met.
@@ -784,7 +782,7 @@ impl BatchArrays {
 }
 
 fn cerr(e: candle_core::Error) -> Error {
-    Error::Internal(e.to_string())
+    Error::from(mnemon_nets::Error::from(e))
 }
 
 fn extra_u64(extra: &std::collections::BTreeMap<String, String>, key: &str) -> u64 {
