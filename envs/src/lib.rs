@@ -37,4 +37,4 @@ pub mod tmaze;
 pub use error::{ProcessFailure, TaskError};
 pub use lanes::{episode_seed, EpisodeSummary, LaneStep, Lanes};
 pub use registry::make;
-pub use space::{ActionSpace, Ending, ObsSpace, Outcome, Task};
+pub use space::{ActionSpace, Ending, ObsSpace, Optimum, Outcome, Task};

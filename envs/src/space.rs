@@ -139,6 +139,15 @@ pub struct Outcome {
     pub success: Option<bool>,
 }
 
+/// The best expected discounted return on a task, where it is known exactly.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Optimum {
+    /// The optimal expected discounted return from an episode's start.
+    pub value: f64,
+    /// How it was computed, in words for the user.
+    pub method: &'static str,
+}
+
 /// One environment instance. `reset` and `step` write the observation into `obs`,
 /// whose length must be `obs_space().len()`.
 pub trait Task: Send {
@@ -152,6 +161,14 @@ pub trait Task: Send {
     fn step(&mut self, action: usize, obs: &mut [f32]) -> Result<Outcome, TaskError>;
     /// Whether the task reports success at episode ends.
     fn has_success(&self) -> bool;
+    /// The best expected discounted return any policy can get from an episode's start
+    /// under `discount`, with how it was computed, for tasks where it is known exactly
+    /// (Tiger: belief-space dynamic programming). Evaluation reports it beside the
+    /// agent's return. `None` (the default) where it is not known.
+    fn exact_optimum(&self, discount: f64) -> Option<Optimum> {
+        let _ = discount;
+        None
+    }
     /// Start a step whose answer comes from outside (an outside program), so that
     /// [`crate::Lanes`] can have every lane's program work at once: it calls this
     /// for each lane, then `step` with the same actions. Built-in tasks do nothing.

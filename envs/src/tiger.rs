@@ -141,6 +141,13 @@ impl Task for Tiger {
     fn has_success(&self) -> bool {
         false
     }
+
+    fn exact_optimum(&self, discount: f64) -> Option<crate::space::Optimum> {
+        Some(crate::space::Optimum {
+            value: optimal_value(self.horizon, discount, self.accuracy, self.end_on_open),
+            method: "exact discounted optimum by belief-space dynamic programming",
+        })
+    }
 }
 
 /// The optimal expected (discounted) return from the start of a Tiger episode of

@@ -7,7 +7,7 @@ use std::time::Duration;
 
 use clap::Args;
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use mnemon_engine::eval::{evaluate, exact_optimum, EvalSetup};
+use mnemon_engine::eval::{evaluate, EvalSetup};
 use mnemon_engine::train::{train, Observer, Progress, Silent, StopReason, Summary, TrainOptions};
 use mnemon_spec::Spec;
 use serde_json::json;
@@ -286,7 +286,7 @@ pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
     let report =
         evaluate(&spec.task, &spec.agent, &loaded.params, &setup).map_err(engine_failure)?;
     let (lo, hi) = report.ci95();
-    let optimum = exact_optimum(&spec.task, spec.learn.discount);
+    let optimum = report.optimum;
     if args.json {
         println!(
             "{}",

@@ -29,6 +29,9 @@ pub struct EvalReport {
     pub lengths: Vec<u64>,
     /// Success of each episode, for tasks that define one.
     pub successes: Option<Vec<bool>>,
+    /// The task's exact optimum under the setup's discount, where the task knows it
+    /// (Tiger); compare with [`EvalReport::mean_discounted`].
+    pub optimum: Option<mnemon_envs::Optimum>,
 }
 
 impl EvalReport {
@@ -90,6 +93,7 @@ pub fn evaluate(
     let mut net = ActorNet::from_params(agent, shape, params)?;
     let actions = lanes.task().action_space().count();
     let has_success = lanes.task().has_success();
+    let optimum = lanes.task().exact_optimum(setup.discount);
     let mut memory = LaneMemory::new(k, net.state_len());
     let mut rng = StdRng::seed_from_u64(setup.seed ^ seeds::EVALUATION_EXPLORATION);
     let mut q = vec![0.0f32; k * actions];
@@ -146,35 +150,7 @@ pub fn evaluate(
         discounted: filled.iter().map(|e| e.1).collect(),
         lengths: filled.iter().map(|e| e.2).collect(),
         successes: has_success.then(|| filled.iter().map(|e| e.3).collect()),
-    })
-}
-
-/// The best expected discounted return any policy can get on a task, where mnemon can
-/// compute it exactly.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Optimum {
-    /// The optimal expected discounted return from an episode's start.
-    pub value: f64,
-    /// How it was computed, in words for the user.
-    pub method: &'static str,
-}
-
-/// The exact optimum of `task` under `discount`, for tasks that have one: the Tiger
-/// problem (Kaelbling et al. 1998), by belief-space dynamic programming over its
-/// finite horizon. `None` for every other task.
-pub fn exact_optimum(task: &TaskSpec, discount: f64) -> Option<Optimum> {
-    if task.kind != "tiger" {
-        return None;
-    }
-    let value = mnemon_envs::tiger::optimal_value(
-        task.int("horizon")? as usize,
-        discount,
-        task.float("listen_accuracy")?,
-        task.bool("end_on_open")?,
-    );
-    Some(Optimum {
-        value,
-        method: "exact discounted optimum by belief-space dynamic programming",
+        optimum,
     })
 }
 
@@ -196,10 +172,25 @@ mod tests {
     #[test]
     fn tiger_reports_its_exact_optimum_and_other_tasks_none() {
         let tiger = spec("tiger.toml", &["task.horizon=3", "learn.discount=0.9"]);
-        let opt = exact_optimum(&tiger.task, tiger.learn.discount).unwrap();
+        let setup = EvalSetup {
+            episodes: 4,
+            seed: 1,
+            epsilon: 0.0,
+            discount: tiger.learn.discount,
+            max_steps: 0,
+        };
+        let lanes = Lanes::new(&tiger.task, 1, 0).unwrap();
+        let shape = crate::learner::net_shape(lanes.task());
+        let params = mnemon_nets::Network::new(&tiger.agent, shape, 0)
+            .unwrap()
+            .snapshot()
+            .unwrap();
+        let report = evaluate(&tiger.task, &tiger.agent, &params, &setup).unwrap();
+        let opt = report.optimum.unwrap();
         assert!((opt.value - 1.9232).abs() < 1e-12, "{opt:?}");
         assert!(opt.method.contains("dynamic programming"));
         let tmaze = spec("tmaze-lstm.toml", &[]);
-        assert_eq!(exact_optimum(&tmaze.task, tmaze.learn.discount), None);
+        let lanes = Lanes::new(&tmaze.task, 1, 0).unwrap();
+        assert_eq!(lanes.task().exact_optimum(tmaze.learn.discount), None);
     }
 }

@@ -8,7 +8,7 @@
 //! - [`schedule`]: several runs at once, in a pool of threads (`mnemon compare`).
 //! - [`actor`], [`learner`], [`replay`], [`sequence`], [`explore`]: the two sides of a
 //!   round and what flows between them.
-//! - [`eval`]: greedy evaluation, and a task's exact optimum where known.
+//! - [`eval`]: greedy evaluation (with the task's exact optimum where the task knows it).
 //! - [`rundir`]: run folders on disk and where a run stands.
 //! - [`seeds`]: the named random streams.
 #![deny(missing_docs)]

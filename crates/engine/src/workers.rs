@@ -29,10 +29,7 @@ struct ActorJob {
 
 enum LearnerJob {
     Round { sequences: Vec<Sequence> },
-    Save {
-        path: PathBuf,
-        meta: CheckpointMeta,
-    },
+    Save { path: PathBuf, meta: CheckpointMeta },
 }
 
 enum LearnerReply {
