@@ -91,8 +91,11 @@ def main():
     inputs = set(policy["inputs"])
 
     successes, total_return, steps = 0, 0.0, 0
+    by_cue = {True: [0, 0, 0.0, 0], False: [0, 0, 0.0, 0]}  # episodes, successes, return, steps
     for _ in range(args.episodes):
         obs = maze.reset()
+        cue = by_cue[maze.goal_north]
+        cue[0] += 1
         state = np.zeros((1, policy["state_size"]), np.float32)  # zeros at an episode start
         prev_action, prev_reward = -1, 0.0  # -1: no previous action
         while True:
@@ -109,16 +112,25 @@ def main():
             obs, reward, done, success = maze.step(action)
             total_return += reward
             steps += 1
+            cue[2] += reward
+            cue[3] += 1
             prev_action, prev_reward = action, reward
             if done:
                 successes += success
+                cue[1] += success
                 break
     print(
         f"{args.episodes} episodes of the T-maze (length {maze.length}), outside mnemon: "
         f"success {100.0 * successes / args.episodes:.1f}%, "
         f"mean return {total_return / args.episodes:.4f}, "
-        f"mean length {steps / args.episodes:.1f} steps"
+        f"mean length {steps / args.episodes:.2f} steps"
     )
+    for north, (n, won, ret, length) in by_cue.items():
+        if n:
+            print(
+                f"  goal {'north' if north else 'south'}: {n} episodes, success "
+                f"{100.0 * won / n:.1f}%, mean return {ret / n:.4f}, mean length {length / n:.2f}"
+            )
 
 
 if __name__ == "__main__":

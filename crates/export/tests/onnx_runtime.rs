@@ -350,3 +350,46 @@ fn params_that_do_not_fit_the_spec_are_refused() {
     let err = PolicySource::from_parts(s, params, 0).unwrap_err();
     assert!(err.to_string().contains("memory"), "{err}");
 }
+
+/// The model carries what a user outside mnemon needs: version, spec (which loads back
+/// to the same spec), action names and state layout.
+#[test]
+fn metadata_describes_the_policy() {
+    use prost::Message;
+    let s = tmaze("memory = { kind = \"lstm\", size = 12 }");
+    let source = random_source(&s, 12);
+    let model = mnemon_export::onnx::ModelProto::decode(&onnx_bytes(&source).unwrap()[..]).unwrap();
+    let get = |k: &str| {
+        model
+            .metadata_props
+            .iter()
+            .find(|e| e.key == k)
+            .map(|e| e.value.clone())
+            .unwrap_or_else(|| panic!("no metadata {k}"))
+    };
+    assert_eq!(get("mnemon.version"), env!("CARGO_PKG_VERSION"));
+    assert_eq!(get("mnemon.actions"), r#"["north","east","south","west"]"#);
+    let back = mnemon_spec::load_str(&get("mnemon.spec"), "meta", &[]).unwrap();
+    assert_eq!(back.spec, s);
+    let policy: serde_json::Value = serde_json::from_str(&get("mnemon.policy")).unwrap();
+    assert_eq!(policy["state_size"], 24);
+    assert_eq!(policy["state_layout"], "h,c");
+    let graph = model.graph.unwrap();
+    let inputs: Vec<&str> = graph.input.iter().map(|i| i.name.as_str()).collect();
+    assert_eq!(inputs, ["obs", "prev_action", "prev_reward", "state"]);
+    let outputs: Vec<&str> = graph.output.iter().map(|i| i.name.as_str()).collect();
+    assert_eq!(outputs, ["q", "state_out"]);
+}
+
+#[test]
+fn policy_step_rejects_wrong_sizes() {
+    let s = tmaze("memory = { kind = \"lstm\", size = 8 }");
+    let mut policy = Policy::new(random_source(&s, 13)).unwrap();
+    let mut state = policy.new_state();
+    let err = policy.step(&[0.0; 4], &mut state).unwrap_err();
+    assert!(err.to_string().contains("observation of 3 floats"), "{err}");
+    let other = tmaze("memory = { kind = \"none\" }");
+    let mut stateless = Policy::new(random_source(&other, 14)).unwrap().new_state();
+    let err = policy.step(&[0.0; 3], &mut stateless).unwrap_err();
+    assert!(err.to_string().contains("state of 16 floats"), "{err}");
+}
