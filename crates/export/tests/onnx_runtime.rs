@@ -298,6 +298,10 @@ fn conv_torsos_match_tract() {
         "torso = { kind = \"conv\", channels = [6], kernels = [3], strides = [1], out = 24 }\nmemory = { kind = \"none\" }\nhead = { kind = \"quantile\", quantiles = 4 }",
     );
     check("conv-none-quantile", &s, 9);
+    // The shipped fog-grid spec itself.
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../../specs/fog-grid.toml");
+    let s = mnemon_spec::load(&path, &[]).unwrap().spec;
+    check("fog-grid-spec", &s, 10);
 }
 
 /// The embedding API plays the same episode as the ONNX graph: same actions, same q.
