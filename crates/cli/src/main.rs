@@ -12,6 +12,7 @@ mod bench;
 mod check;
 mod compare;
 mod explain;
+mod export;
 mod inspect;
 mod tasks;
 mod train;
@@ -37,6 +38,8 @@ enum Command {
     Check(check::CheckArgs),
     /// Print the resolved spec with each value's origin and doc.
     Explain(explain::ExplainArgs),
+    /// Write a checkpoint's policy as an ONNX graph of one time step.
+    Export(export::ExportArgs),
     /// Show a checkpoint's spec, counters and tensors.
     Inspect(inspect::InspectArgs),
     /// Time the learner or actor step (same work as the PyTorch reference).
@@ -53,6 +56,7 @@ fn run(command: Command) -> Result<(), Failure> {
         Command::Compare(a) => compare::run_compare(a),
         Command::Check(a) => check::run_check(a),
         Command::Explain(a) => explain::run_explain(a),
+        Command::Export(a) => export::run_export(a),
         Command::Inspect(a) => inspect::run_inspect(a),
         Command::Bench(a) => bench::run_bench(a),
         Command::Tasks(a) => tasks::run(a),
