@@ -1,10 +1,11 @@
 //! Who uses how many cores inside `mnemon-nets`.
 //!
-//! The fused LSTM op splits its batch across `threads()` scoped OS threads (lanes of a
-//! batch are independent through the whole recurrence, so no synchronisation is needed
-//! inside the sequence). The default is 1: the caller (the learner, the benchmark) decides
-//! explicitly, so actors and the learner do not oversubscribe the cores. candle's own
-//! matmuls use rayon's pool (`RAYON_NUM_THREADS`) and its elementwise pool
+//! The fused LSTM op runs its recurrence on a team of `threads()` threads
+//! ([`run_team`]: the calling thread plus parked pool workers, started on first use),
+//! split by lanes or by hidden units (see `lstm.rs`). The default is 1: the caller (the
+//! learner, the benchmark) decides explicitly, so actors and the learner do not
+//! oversubscribe the cores. candle's own matmuls and the large products of the affine
+//! op use rayon's pool (`RAYON_NUM_THREADS`) and candle's elementwise pool
 //! (`CANDLE_NUM_THREADS`); the binary sets those before the first tensor op.
 
 use std::sync::atomic::{AtomicUsize, Ordering};
