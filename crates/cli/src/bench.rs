@@ -85,13 +85,19 @@ struct ActorArgs {
     iters: usize,
 }
 
-/// Sets every pool that may run tensor work to `n` threads. Runs before the first tensor
-/// op: the pools read these once.
+/// Gives the fused ops (`mnemon_nets::threads`) and gemm's rayon pool `n` threads, and
+/// keeps candle's elementwise pool at one. Runs before the first tensor op: the pools
+/// read these once.
+///
+/// candle's pool spin-waits for its helpers: measured with `perf record` on
+/// `mnemon bench learner --threads 2` (B = 32, H = 128), 36% of the samples were that
+/// wait and its helper thread, for elementwise work that one thread does in a few
+/// percent of the step.
 fn set_threads(n: usize) {
     let n = n.max(1);
-    for var in ["RAYON_NUM_THREADS", "CANDLE_NUM_THREADS"] {
+    for (var, value) in [("RAYON_NUM_THREADS", n), ("CANDLE_NUM_THREADS", 1)] {
         // SAFETY: runs on the main thread before any other thread has been started.
-        unsafe { std::env::set_var(var, n.to_string()) };
+        unsafe { std::env::set_var(var, value.to_string()) };
     }
     mnemon_nets::threads::set_threads(n);
 }
