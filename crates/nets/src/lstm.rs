@@ -637,7 +637,9 @@ fn run(
             format!("{:?}", xg.dims()),
         ));
     }
-    let (team, split) = choose_split(b, h, threads::threads());
+    // Members of a team meet at a barrier every step, so a team larger than the cores
+    // only makes members wait for each other's time slices.
+    let (team, split) = choose_split(b, h, threads::threads().min(threads::cores()));
     let op = LstmSeq {
         steps,
         batch: b,

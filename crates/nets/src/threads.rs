@@ -22,6 +22,12 @@ pub fn set_threads(n: usize) {
     THREADS.store(n.max(1), Ordering::Relaxed);
 }
 
+/// Cores this process may run on (at least 1), read once.
+pub(crate) fn cores() -> usize {
+    static CORES: std::sync::OnceLock<usize> = std::sync::OnceLock::new();
+    *CORES.get_or_init(|| std::thread::available_parallelism().map_or(1, |n| n.get()))
+}
+
 /// Splits `0..n` into at most `parts` contiguous, nearly equal ranges (none empty).
 pub(crate) fn split(n: usize, parts: usize) -> Vec<std::ops::Range<usize>> {
     let parts = parts.clamp(1, n.max(1));

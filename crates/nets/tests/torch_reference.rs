@@ -5,7 +5,8 @@
 //! `lstm_fixture_wide.json` (40 hidden units, enough for the op to split them over
 //! threads), made by `tests/reference/make_lstm_fixture.py` (float64 math on
 //! f32-representable inputs). Each fixture is checked on one thread and split over two
-//! and three.
+//! and three (the op uses no more threads than the machine has cores; the unit tests in
+//! `lstm.rs` run teams of three directly).
 
 use candle_core::{Device, Tensor, Var};
 use mnemon_nets::lstm::lstm_sequence;
