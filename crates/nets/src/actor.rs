@@ -189,8 +189,8 @@ unsafe fn dense_avx2(
 #[allow(clippy::too_many_arguments)]
 fn dense(rows: usize, inp: usize, out: usize, x: &[f32], wt: &[f32], b: &[f32], y: &mut [f32]) {
     #[cfg(target_arch = "x86_64")]
-    if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
-        // SAFETY: the CPU supports the features just checked.
+    if fastmath::simd_kernels() {
+        // SAFETY: `simd_kernels` checked that the CPU supports both features.
         return unsafe { dense_avx2(rows, inp, out, x, wt, b, y) };
     }
     dense_impl::<Split>(rows, inp, out, x, wt, b, y)
@@ -562,6 +562,71 @@ impl ActorNet {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Steps the benchmark network (MLP torso, LSTM, value head) over a few steps for 3
+    /// lanes and returns every step's Q values and the final recurrent state.
+    fn run_actor(hidden: usize, steps: usize) -> (Vec<f32>, Vec<f32>) {
+        use rand::{Rng, SeedableRng};
+        let net = Network::new(
+            &crate::bench::agent(hidden),
+            crate::bench::shape_with_obs(21),
+            7,
+        )
+        .unwrap();
+        let mut actor = ActorNet::new(&net).unwrap();
+        let lanes = 3;
+        let mut rng = rand::rngs::StdRng::seed_from_u64(9);
+        let mut state = vec![0f32; lanes * actor.state_len()];
+        let mut q = vec![0f32; lanes * actor.actions()];
+        let mut all_q = Vec::new();
+        for _ in 0..steps {
+            let obs: Vec<f32> = (0..lanes * 21)
+                .map(|_| rng.random_range(-2.0..2.0))
+                .collect();
+            actor
+                .step(&obs, &[4, 0, 2], &[0.0; 3], &mut state, &mut q)
+                .unwrap();
+            all_q.extend_from_slice(&q);
+        }
+        (all_q, state)
+    }
+
+    // The portable (no FMA) kernels against the AVX2 + FMA ones on this machine: both
+    // compute the same sums, in the same order, with or without fused rounding, so they
+    // agree to a few ulps of the values' scale. On a CPU without FMA both runs take the
+    // portable path and must agree exactly.
+    #[test]
+    fn portable_kernels_agree_with_the_fma_kernels() {
+        let simd = fastmath::simd_kernels();
+        let (q_fast, s_fast) = run_actor(40, 6);
+        let (q_port, s_port) = fastmath::with_portable_kernels(|| {
+            assert!(
+                !fastmath::simd_kernels(),
+                "the switch must select the portable path"
+            );
+            run_actor(40, 6)
+        });
+        assert_eq!(
+            fastmath::simd_kernels(),
+            simd,
+            "the switch is undone on return"
+        );
+        let worst = q_fast
+            .iter()
+            .chain(&s_fast)
+            .zip(q_port.iter().chain(&s_port))
+            .fold(0f32, |m, (a, b)| m.max((a - b).abs()));
+        assert!(worst < 1e-5, "portable and FMA paths differ by {worst}");
+        if simd {
+            // the dense layers use fused multiply-adds only on the FMA path, so a
+            // difference shows that the switch really changed the kernels
+            assert!(worst > 0.0, "the portable switch did not change the path");
+        } else {
+            assert_eq!(worst, 0.0);
+        }
+        // Both ran real work: the values are not all zero.
+        assert!(q_port.iter().any(|x| x.abs() > 1e-3));
+    }
 
     // Reference: the plain triple loop y = x w^T + b.
     #[test]

@@ -10,7 +10,7 @@
 use candle_core::{bail, CpuStorage, CustomOp3, Layout, Shape, Tensor};
 use gemm::Parallelism;
 
-use crate::lstm::with_f32;
+use crate::raw::{strided_matmul, with_f32};
 use crate::threads;
 
 struct Affine {
@@ -39,9 +39,13 @@ fn par(work: usize) -> Parallelism {
     }
 }
 
-/// `dst[m, n] (+)= lhs[m, k] * rhs[k, n]` with explicit row and column strides.
+/// `dst[m, n] (+)= lhs[m, k] * rhs[k, n]` with explicit row and column strides, `dst`
+/// contiguous; threads as [`par`] decides.
+///
+/// # Safety
+/// As [`strided_matmul`] with `dst_rs = n`.
 #[allow(clippy::too_many_arguments)]
-unsafe fn mm(
+unsafe fn dense_matmul(
     m: usize,
     n: usize,
     k: usize,
@@ -54,25 +58,19 @@ unsafe fn mm(
     rhs_rs: usize,
     rhs_cs: usize,
 ) {
-    gemm::gemm(
+    strided_matmul(
         m,
         n,
         k,
         dst,
-        1,
-        n as isize,
+        n,
         accumulate,
         lhs,
-        lhs_cs as isize,
         lhs_rs as isize,
+        lhs_cs as isize,
         rhs,
-        rhs_cs as isize,
         rhs_rs as isize,
-        1.0,
-        1.0,
-        false,
-        false,
-        false,
+        rhs_cs as isize,
         par(m * n * k),
     );
 }
@@ -105,7 +103,7 @@ impl CustomOp3 for Affine {
         if inp > 0 && rows > 0 {
             // SAFETY: sizes checked above; w^T is read through strides (k: 1, n: inp).
             unsafe {
-                mm(
+                dense_matmul(
                     rows,
                     out,
                     inp,
@@ -142,7 +140,7 @@ impl CustomOp3 for Affine {
                         // SAFETY: all buffers have the sizes checked in the forward pass.
                         unsafe {
                             // dx = dy w: [rows, out] x [out, inp]
-                            mm(
+                            dense_matmul(
                                 rows,
                                 inp,
                                 out,
@@ -156,7 +154,7 @@ impl CustomOp3 for Affine {
                                 1,
                             );
                             // dw = dy^T x: [out, rows] x [rows, inp]
-                            mm(
+                            dense_matmul(
                                 out,
                                 inp,
                                 rows,

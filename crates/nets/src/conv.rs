@@ -110,7 +110,7 @@ impl CustomOp1 for Im2col {
     ) -> candle_core::Result<Option<Tensor>> {
         let g = self.0;
         let mut dx = vec![0f32; g.n * g.h * g.w * g.c];
-        crate::lstm::with_f32(grad_res, |gr| self.for_each(|d, s| dx[s] += gr[d]))?;
+        crate::raw::with_f32(grad_res, |gr| self.for_each(|d, s| dx[s] += gr[d]))?;
         Ok(Some(Tensor::from_vec(dx, arg.shape(), arg.device())?))
     }
 }

@@ -46,8 +46,44 @@ pub fn tanh(x: f32) -> f32 {
     a.copysign(x)
 }
 
+thread_local! {
+    /// Set while [`with_portable_kernels`] runs on this thread.
+    static PORTABLE_ONLY: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
+}
+
+/// True when this thread should take the AVX2 + FMA versions of the kernels: the CPU has
+/// both features and the thread is not inside [`with_portable_kernels`].
+#[inline]
+pub fn simd_kernels() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        !PORTABLE_ONLY.with(|p| p.get())
+            && std::is_x86_feature_detected!("avx2")
+            && std::is_x86_feature_detected!("fma")
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        false
+    }
+}
+
+/// Runs `f` with every kernel of this crate that has an AVX2 + FMA version (the
+/// [`multiversion!`](crate::multiversion) functions, the actor's dense layers) taking its
+/// portable baseline version instead, on the calling thread only. For tests and for
+/// diagnosing a numerical difference between machines with and without FMA.
+pub fn with_portable_kernels<R>(f: impl FnOnce() -> R) -> R {
+    struct Restore(bool);
+    impl Drop for Restore {
+        fn drop(&mut self) {
+            PORTABLE_ONLY.with(|p| p.set(self.0));
+        }
+    }
+    let _restore = Restore(PORTABLE_ONLY.with(|p| p.replace(true)));
+    f()
+}
+
 /// Defines a function whose body is compiled twice: for the baseline target and with
-/// AVX2 + FMA enabled, chosen at run time. Rust's default x86-64 target is SSE2 only, so
+/// AVX2 + FMA enabled, chosen at run time by [`simd_kernels`]. Rust's default x86-64 target is SSE2 only, so
 /// without this the hot loops would run at a quarter of the vector width.
 #[macro_export]
 #[doc(hidden)]
@@ -66,8 +102,8 @@ macro_rules! multiversion {
                 unsafe fn avx2($($arg: $ty),*) {
                     inner($($arg),*)
                 }
-                if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
-                    // SAFETY: the CPU supports the features just checked.
+                if $crate::fastmath::simd_kernels() {
+                    // SAFETY: `simd_kernels` checked that the CPU supports both features.
                     return unsafe { avx2($($arg),*) };
                 }
             }

@@ -20,6 +20,7 @@ pub mod loss;
 pub mod lstm;
 pub mod network;
 pub mod optim;
+mod raw;
 pub mod threads;
 
 pub use actor::ActorNet;

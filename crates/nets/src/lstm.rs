@@ -13,17 +13,26 @@
 //! The per-step recurrent matmul `h_{t-1} W_hh^T` goes straight to `gemm` on contiguous
 //! memory; the gate nonlinearities use [`crate::fastmath`]. The backward pass runs the
 //! recurrence in reverse, then computes `dW_hh` as two large matmuls over all steps.
-//! Lanes of the batch are independent, so with [`crate::threads::threads`] > 1 each thread
-//! runs the whole recurrence for its own lanes. Per-step slices of graph tensors are
-//! avoided entirely (their backward would be O(T^2)).
+//! Per-step slices of graph tensors are avoided entirely (their backward would be
+//! O(T^2)).
+//!
+//! With [`crate::threads::threads`] > 1 the recurrence runs on a team of threads
+//! ([`crate::threads::run_team`]), split one of two ways (see [`Split`]): by lanes of the
+//! batch (independent through the whole sequence, no synchronisation) when every thread
+//! gets enough lanes, otherwise by hidden units (each thread computes the four gate
+//! columns of its units for all lanes, and the team meets at a barrier once per step).
+//! `dW_hh` is split by rows over the same team.
 
-use std::sync::Mutex;
+use std::ops::Range;
+use std::sync::{Arc, Mutex};
 
-use candle_core::{bail, CpuStorage, CustomOp3, Layout, Shape, Storage, Tensor};
+use candle_core::{bail, CpuStorage, CustomOp3, Layout, Shape, Tensor};
 use gemm::Parallelism;
 
 use crate::fastmath;
-use crate::threads;
+pub(crate) use crate::raw::{f32_slice, with_f32};
+use crate::raw::{strided_matmul, DisjointMut, SharedRead};
+use crate::threads::{self, Member};
 
 /// Activations saved by the forward pass for the backward pass.
 struct Saved {
@@ -35,328 +44,410 @@ struct Saved {
     cs: Vec<f32>,
 }
 
-/// Fewest lanes worth a thread of their own in the recurrence. gemm pads a per-step
+/// How the members of a team divide one recurrence.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(crate) enum Split {
+    /// Each member runs the whole recurrence for its own lanes: no synchronisation inside
+    /// the sequence, but each per-step matmul has only that member's lanes as rows.
+    Lanes,
+    /// Each member owns a block of hidden units (the four gate columns of each) for all
+    /// lanes; the team meets at a barrier once per step, forward and backward.
+    Units,
+}
+
+/// Fewest lanes worth a thread of their own in a lane split. gemm pads a per-step
 /// product's rows to its microkernel height, so a thread with few lanes costs nearly
 /// as much as one with all of them: measured with `mnemon bench learner --threads 2`,
-/// splitting B = 32 in two made the step slower (14 ms vs 11.8 ms unsplit), B = 64 was
-/// even and B = 128 faster (41 ms vs 55 ms).
+/// splitting B = 32 by lanes made the step slower (14 ms vs 11.8 ms unsplit).
 const MIN_LANES_PER_THREAD: usize = 32;
+
+/// Hidden units per block of a unit split: a multiple of the matmul kernels' vector
+/// width, so no member's gate columns straddle a vector.
+const UNIT_ALIGN: usize = 16;
+
+/// The team size and split for a recurrence of `batch` lanes and `hidden` units on up
+/// to `threads` threads.
+pub(crate) fn choose_split(batch: usize, hidden: usize, threads: usize) -> (usize, Split) {
+    if threads <= 1 {
+        return (1, Split::Lanes);
+    }
+    if batch >= MIN_LANES_PER_THREAD * threads {
+        return (threads, Split::Lanes);
+    }
+    let blocks = hidden.div_ceil(UNIT_ALIGN);
+    if blocks >= 2 {
+        (threads.min(blocks), Split::Units)
+    } else {
+        let t = threads.min(batch / MIN_LANES_PER_THREAD).max(1);
+        (t, Split::Lanes)
+    }
+}
 
 /// One application of the fused LSTM to one sequence batch.
 struct LstmSeq {
     steps: usize,
     batch: usize,
     hidden: usize,
-    /// Threads of the large matmuls (the weight gradient).
-    threads: usize,
-    /// Threads the batch's lanes are split over for the recurrence.
-    lane_threads: usize,
+    /// Threads the recurrence and the weight gradient run on.
+    team: usize,
+    split: Split,
     save: bool,
     /// Output h and c (`[2, T, B, H]`) rather than h only (`[T, B, H]`).
     full: bool,
-    saved: std::sync::Arc<Mutex<Option<Saved>>>,
+    saved: Arc<Mutex<Option<Saved>>>,
 }
 
-/// A vector of `n` floats, every one written by `fill` before it is read.
-///
-/// Skips the zeroing pass of `vec![0.0; n]` for buffers that are overwritten anyway.
-///
-/// # Safety
-/// `fill` must write all `n` elements through the pointer it is given.
-pub(crate) unsafe fn filled(n: usize, fill: impl FnOnce(*mut f32)) -> Vec<f32> {
-    let mut v: Vec<f32> = Vec::with_capacity(n);
-    fill(v.as_mut_ptr());
-    v.set_len(n);
-    v
-}
-
+/// The input buffers of one forward pass, as the team's members see them.
 #[derive(Clone, Copy)]
-struct Ptr(*mut f32);
-// SAFETY: the pointers are only used on disjoint row ranges by the threads of one scope.
-unsafe impl Send for Ptr {}
-unsafe impl Sync for Ptr {}
+struct ForwardBufs {
+    /// `W_hh^T` `[H, 4H]`.
+    whh_t: SharedRead,
+    /// `[2, B, H]`.
+    s0: SharedRead,
+    /// `[T, B, H]` each.
+    hs: DisjointMut,
+    cs: DisjointMut,
+    tanh_c: DisjointMut,
+    /// `[T, B, 4H]`: the input projection in, the activations out.
+    acts: DisjointMut,
+}
 
+/// The buffers of one backward pass, as the team's members see them.
 #[derive(Clone, Copy)]
-struct CPtr(*const f32);
-// SAFETY: read-only shared data, alive for the whole scope.
-unsafe impl Send for CPtr {}
-unsafe impl Sync for CPtr {}
-
-/// The contiguous f32 data of a custom op's input; `what` names it in errors
-/// (`fused lstm: w_hh must be f32`).
-pub(crate) fn f32_slice<'a>(
-    s: &'a CpuStorage,
-    l: &Layout,
-    what: &str,
-) -> candle_core::Result<&'a [f32]> {
-    let CpuStorage::F32(v) = s else {
-        bail!("{what} must be f32")
-    };
-    match l.contiguous_offsets() {
-        Some((a, b)) => Ok(&v[a..b]),
-        None => bail!("{what} must be contiguous"),
-    }
-}
-
-/// Runs `f` on the contiguous f32 data of a CPU tensor (copying only if it is strided).
-pub(crate) fn with_f32<R>(t: &Tensor, f: impl FnOnce(&[f32]) -> R) -> candle_core::Result<R> {
-    let t = if t.is_contiguous() {
-        t.clone()
-    } else {
-        t.contiguous()?
-    };
-    let (storage, layout) = t.storage_and_layout();
-    match &*storage {
-        Storage::Cpu(s) => Ok(f(f32_slice(s, layout, "mnemon-nets: tensor")?)),
-        _ => bail!("mnemon-nets runs on the CPU only"),
-    }
-}
-
-/// `dst[m x n] (+)= lhs[m x k] * rhs[k x n]` on raw row-major pointers with given row strides
-/// (column stride 1 unless transposed views are passed through the `_cs` arguments).
-#[allow(clippy::too_many_arguments)]
-#[inline]
-unsafe fn mm(
-    m: usize,
-    n: usize,
-    k: usize,
-    dst: *mut f32,
-    dst_rs: usize,
-    accumulate: bool,
-    lhs: *const f32,
-    lhs_rs: isize,
-    lhs_cs: isize,
-    rhs: *const f32,
-    rhs_rs: isize,
-    rhs_cs: isize,
-    par: Parallelism,
-) {
-    if m == 0 || n == 0 {
-        return;
-    }
-    if k == 0 {
-        if !accumulate {
-            for r in 0..m {
-                std::ptr::write_bytes(dst.add(r * dst_rs), 0, n);
-            }
-        }
-        return;
-    }
-    gemm::gemm(
-        m,
-        n,
-        k,
-        dst,
-        1,
-        dst_rs as isize,
-        accumulate,
-        lhs,
-        lhs_cs,
-        lhs_rs,
-        rhs,
-        rhs_cs,
-        rhs_rs,
-        1.0,
-        1.0,
-        false,
-        false,
-        false,
-        par,
-    );
+struct BackwardBufs {
+    /// `W_hh` `[4H, H]`.
+    whh: SharedRead,
+    /// `[2, B, H]`.
+    s0: SharedRead,
+    /// `[T, B, H]`: the forward pass's hidden states, cell states, tanh of cell states.
+    hs: SharedRead,
+    cs: SharedRead,
+    tanh_c: SharedRead,
+    /// `[T, B, 4H]`.
+    acts: SharedRead,
+    /// Incoming gradients `[T, B, H]` of the hidden and (full mode) cell states.
+    gh: SharedRead,
+    gc: Option<SharedRead>,
+    /// Out: `[T, B, 4H]`.
+    dxg: DisjointMut,
+    /// Out: `[2, B, H]`; during the recurrence it carries dh and dc from step t+1.
+    ds0: DisjointMut,
+    /// Out: `[4H, H]`.
+    dwhh: DisjointMut,
 }
 
 impl LstmSeq {
-    /// Forward over lanes `r0..r1` for all steps.
-    #[allow(clippy::too_many_arguments)]
-    unsafe fn forward_lanes(
-        &self,
-        r0: usize,
-        r1: usize,
-        whh_t: CPtr,
-        s0: CPtr,
-        hs: Ptr,
-        cs: Ptr,
-        acts: Ptr,
-        tanh_c: Ptr,
-    ) {
+    /// The lanes and hidden units member `index` of a team of `size` owns.
+    fn block(&self, index: usize, size: usize) -> (Range<usize>, Range<usize>) {
+        let (b, h) = (self.batch, self.hidden);
+        match self.split {
+            Split::Lanes => (
+                threads::split(b, size).get(index).cloned().unwrap_or(0..0),
+                0..h,
+            ),
+            Split::Units => (
+                0..b,
+                threads::split_aligned(h, size, UNIT_ALIGN)
+                    .get(index)
+                    .cloned()
+                    .unwrap_or(0..0),
+            ),
+        }
+    }
+
+    /// One member's share of the forward recurrence over all steps.
+    ///
+    /// # Safety
+    /// The buffers have the sizes of `self`'s shapes, and every member of the team runs
+    /// this with the same buffers (the split gives each member disjoint output elements;
+    /// the barrier orders each step's writes before the next step's reads).
+    unsafe fn forward_member(&self, m: &Member<'_>, bufs: ForwardBufs) {
         let (t_len, b, h) = (self.steps, self.batch, self.hidden);
         let g4 = 4 * h;
-        let m = r1 - r0;
+        let (lanes, units) = self.block(m.index, m.size);
+        let (r0, rows) = (lanes.start, lanes.len());
+        let (u0, uw) = (units.start, units.len());
+        let sync = self.split == Split::Units;
         for t in 0..t_len {
-            let (h_prev, c_prev): (*const f32, *const f32) = if t == 0 {
-                (s0.0.add(r0 * h), s0.0.add(b * h + r0 * h))
-            } else {
-                (
-                    hs.0.add(((t - 1) * b + r0) * h),
-                    cs.0.add(((t - 1) * b + r0) * h),
-                )
-            };
-            // `acts` arrives holding the input projection; the recurrent term is added.
-            let gates = acts.0.add((t * b + r0) * g4);
-            mm(
-                m,
-                g4,
-                h,
-                gates,
-                g4,
-                true,
-                h_prev,
-                h as isize,
-                1,
-                whh_t.0,
-                g4 as isize,
-                1,
-                Parallelism::None,
-            );
-            let base = (t * b + r0) * h;
-            forward_cells(
-                h,
-                std::slice::from_raw_parts_mut(gates, m * g4),
-                std::slice::from_raw_parts(c_prev, m * h),
-                std::slice::from_raw_parts_mut(hs.0.add(base), m * h),
-                std::slice::from_raw_parts_mut(cs.0.add(base), m * h),
-                std::slice::from_raw_parts_mut(tanh_c.0.add(base), m * h),
-            );
-        }
-    }
-
-    /// Backward recurrence over lanes `r0..r1`: writes `dxg` rows and the start-state grads.
-    #[allow(clippy::too_many_arguments)]
-    unsafe fn backward_lanes(
-        &self,
-        r0: usize,
-        r1: usize,
-        whh: CPtr,
-        s0: CPtr,
-        cs: CPtr,
-        acts: CPtr,
-        tanh_c: CPtr,
-        gh: CPtr,
-        gc: Option<CPtr>,
-        dxg: Ptr,
-        ds0: Ptr,
-    ) {
-        let (t_len, b, h) = (self.steps, self.batch, self.hidden);
-        let g4 = 4 * h;
-        let m = r1 - r0;
-        let mut dh_next = vec![0f32; m * h];
-        let mut dc_next = vec![0f32; m * h];
-        for t in (0..t_len).rev() {
-            let c_prev: *const f32 = if t == 0 {
-                s0.0.add(b * h + r0 * h)
-            } else {
-                cs.0.add(((t - 1) * b + r0) * h)
-            };
-            let base = (t * b + r0) * h;
-            backward_cells(
-                h,
-                std::slice::from_raw_parts(acts.0.add((t * b + r0) * g4), m * g4),
-                std::slice::from_raw_parts(tanh_c.0.add(base), m * h),
-                std::slice::from_raw_parts(c_prev, m * h),
-                std::slice::from_raw_parts(gh.0.add(base), m * h),
-                gc.map(|g| std::slice::from_raw_parts(g.0.add(base), m * h)),
-                std::slice::from_raw_parts_mut(dxg.0.add((t * b + r0) * g4), m * g4),
-                &mut dh_next,
-                &mut dc_next,
-            );
-            // dh_{t-1} = da_t W_hh  ([m, 4H] x [4H, H])
-            mm(
-                m,
-                h,
-                g4,
-                dh_next.as_mut_ptr(),
-                h,
-                false,
-                dxg.0.add((t * b + r0) * g4),
-                g4 as isize,
-                1,
-                whh.0,
-                h as isize,
-                1,
-                Parallelism::None,
-            );
-        }
-        std::ptr::copy_nonoverlapping(dh_next.as_ptr(), ds0.0.add(r0 * h), m * h);
-        std::ptr::copy_nonoverlapping(dc_next.as_ptr(), ds0.0.add(b * h + r0 * h), m * h);
-    }
-}
-
-crate::multiversion! {
-    /// The cell update of one step for a block of rows: `gates` `[m, 4H]` pre-activations
-    /// in, activations out (i, f, g, o); `c_prev` `[m, H]`; writes h, c and tanh(c).
-    fn forward_cells(h: usize, gates: &mut [f32], c_prev: &[f32], hs: &mut [f32], cs: &mut [f32], tcs: &mut [f32]) {
-        let g4 = 4 * h;
-        for (r, row) in gates.chunks_exact_mut(g4).enumerate() {
-            let (ifg, o) = row.split_at_mut(3 * h);
-            let (if_, g) = ifg.split_at_mut(2 * h);
-            for x in if_.iter_mut() {
-                *x = fastmath::sigmoid(*x);
-            }
-            for x in g.iter_mut() {
-                *x = fastmath::tanh(*x);
-            }
-            for x in o.iter_mut() {
-                *x = fastmath::sigmoid(*x);
-            }
-            let (i, f) = if_.split_at(h);
-            let cp = &c_prev[r * h..(r + 1) * h];
-            let hc = &mut hs[r * h..(r + 1) * h];
-            let cc = &mut cs[r * h..(r + 1) * h];
-            let tc = &mut tcs[r * h..(r + 1) * h];
-            for j in 0..h {
-                let c = f[j] * cp[j] + i[j] * g[j];
-                cc[j] = c;
-                let t = fastmath::tanh(c);
-                tc[j] = t;
-                hc[j] = o[j] * t;
-            }
-        }
-    }
-}
-
-crate::multiversion! {
-    /// The backward pass of one step's cell update for a block of rows; `dhn`/`dcn` carry
-    /// the recurrent gradients in (from step t+1) and `dcn` carries dc_{t-1} out; `d`
-    /// receives the gate pre-activation gradients `[m, 4H]`.
-    fn backward_cells(
-        h: usize,
-        acts: &[f32],
-        tcs: &[f32],
-        c_prev: &[f32],
-        ghs: &[f32],
-        gcs: Option<&[f32]>,
-        d: &mut [f32],
-        dhn: &mut [f32],
-        dcn: &mut [f32],
-    ) {
-        let g4 = 4 * h;
-        for (r, (a, drow)) in acts.chunks_exact(g4).zip(d.chunks_exact_mut(g4)).enumerate() {
-            let (i, rest) = a.split_at(h);
-            let (f, rest) = rest.split_at(h);
-            let (g, o) = rest.split_at(h);
-            let rs = r * h..(r + 1) * h;
-            let (tc, cp, gh) = (&tcs[rs.clone()], &c_prev[rs.clone()], &ghs[rs.clone()]);
-            let dcr = &mut dcn[rs.clone()];
-            if let Some(gcs) = gcs {
-                for (d, g) in dcr.iter_mut().zip(&gcs[rs.clone()]) {
-                    *d += g;
+            if rows > 0 && uw > 0 {
+                let (h_prev, c_prev): (*const f32, *const f32) = if t == 0 {
+                    (bufs.s0.0.add(r0 * h), bufs.s0.0.add((b + r0) * h))
+                } else {
+                    (
+                        bufs.hs.0.add(((t - 1) * b + r0) * h),
+                        bufs.cs.0.add(((t - 1) * b + r0) * h),
+                    )
+                };
+                // `acts` arrives holding the input projection; the recurrent term is added.
+                let gates = bufs.acts.0.add((t * b + r0) * g4);
+                if uw == h {
+                    strided_matmul(
+                        rows,
+                        g4,
+                        h,
+                        gates,
+                        g4,
+                        true,
+                        h_prev,
+                        h as isize,
+                        1,
+                        bufs.whh_t.0,
+                        g4 as isize,
+                        1,
+                        Parallelism::None,
+                    );
+                } else {
+                    for q in 0..4 {
+                        strided_matmul(
+                            rows,
+                            uw,
+                            h,
+                            gates.add(q * h + u0),
+                            g4,
+                            true,
+                            h_prev,
+                            h as isize,
+                            1,
+                            bufs.whh_t.0.add(q * h + u0),
+                            g4 as isize,
+                            1,
+                            Parallelism::None,
+                        );
+                    }
+                }
+                for r in 0..rows {
+                    let row = gates.add(r * g4 + u0);
+                    let gate = |q: usize| std::slice::from_raw_parts_mut(row.add(q * h), uw);
+                    let at = (t * b + r0 + r) * h + u0;
+                    forward_cell_row(
+                        gate(0),
+                        gate(1),
+                        gate(2),
+                        gate(3),
+                        std::slice::from_raw_parts(c_prev.add(r * h + u0), uw),
+                        std::slice::from_raw_parts_mut(bufs.hs.0.add(at), uw),
+                        std::slice::from_raw_parts_mut(bufs.cs.0.add(at), uw),
+                        std::slice::from_raw_parts_mut(bufs.tanh_c.0.add(at), uw),
+                    );
                 }
             }
-            let dhr = &dhn[rs];
-            let (di, rest) = drow.split_at_mut(h);
-            let (df, rest) = rest.split_at_mut(h);
-            let (dg, do_) = rest.split_at_mut(h);
-            for j in 0..h {
-                let dh = gh[j] + dhr[j];
-                let dc = dcr[j] + dh * o[j] * (1.0 - tc[j] * tc[j]);
-                do_[j] = dh * tc[j] * o[j] * (1.0 - o[j]);
-                di[j] = dc * g[j] * i[j] * (1.0 - i[j]);
-                dg[j] = dc * i[j] * (1.0 - g[j] * g[j]);
-                df[j] = dc * cp[j] * f[j] * (1.0 - f[j]);
-                dcr[j] = dc * f[j];
+            if sync {
+                m.sync();
             }
         }
     }
+
+    /// One member's share of the backward recurrence, then of `dW_hh`.
+    ///
+    /// # Safety
+    /// As [`LstmSeq::forward_member`]; `ds0` starts zeroed.
+    unsafe fn backward_member(&self, m: &Member<'_>, bufs: BackwardBufs) {
+        let (t_len, b, h) = (self.steps, self.batch, self.hidden);
+        let g4 = 4 * h;
+        let (lanes, units) = self.block(m.index, m.size);
+        let (r0, rows) = (lanes.start, lanes.len());
+        let (u0, uw) = (units.start, units.len());
+        let sync = self.split == Split::Units;
+        let (dh_next, dc_next) = (bufs.ds0.0, bufs.ds0.0.add(b * h));
+        for t in (0..t_len).rev() {
+            if rows > 0 && uw > 0 {
+                for r in 0..rows {
+                    let lane = r0 + r;
+                    let arow = bufs.acts.0.add((t * b + lane) * g4 + u0);
+                    let act = |q: usize| std::slice::from_raw_parts(arow.add(q * h), uw);
+                    let drow = bufs.dxg.0.add((t * b + lane) * g4 + u0);
+                    let dgate = |q: usize| std::slice::from_raw_parts_mut(drow.add(q * h), uw);
+                    let at = (t * b + lane) * h + u0;
+                    let c_prev = if t == 0 {
+                        bufs.s0.0.add((b + lane) * h + u0)
+                    } else {
+                        bufs.cs.0.add(((t - 1) * b + lane) * h + u0)
+                    };
+                    backward_cell_row(
+                        act(0),
+                        act(1),
+                        act(2),
+                        act(3),
+                        std::slice::from_raw_parts(bufs.tanh_c.0.add(at), uw),
+                        std::slice::from_raw_parts(c_prev, uw),
+                        std::slice::from_raw_parts(bufs.gh.0.add(at), uw),
+                        bufs.gc.map(|g| std::slice::from_raw_parts(g.0.add(at), uw)),
+                        dgate(0),
+                        dgate(1),
+                        dgate(2),
+                        dgate(3),
+                        std::slice::from_raw_parts(dh_next.add(lane * h + u0), uw),
+                        std::slice::from_raw_parts_mut(dc_next.add(lane * h + u0), uw),
+                    );
+                }
+            }
+            if sync {
+                // every member's gate gradients of step t are written
+                m.sync();
+            }
+            if rows > 0 && uw > 0 {
+                // dh_{t-1}[lanes, units] = da_t[lanes, :] W_hh[:, units]
+                strided_matmul(
+                    rows,
+                    uw,
+                    g4,
+                    dh_next.add(r0 * h + u0),
+                    h,
+                    false,
+                    bufs.dxg.0.add((t * b + r0) * g4),
+                    g4 as isize,
+                    1,
+                    bufs.whh.0.add(u0),
+                    h as isize,
+                    1,
+                    Parallelism::None,
+                );
+            }
+        }
+        // dW_hh = sum_t da_t^T h_{t-1}, split by rows of W_hh: [rows, B] x [B, H] for
+        // t = 0 (h0), then [rows, (T-1)B] x [(T-1)B, H] over the stored hidden states.
+        m.sync();
+        let wrows = threads::split_aligned(g4, m.size, UNIT_ALIGN)
+            .get(m.index)
+            .cloned()
+            .unwrap_or(0..0);
+        if wrows.is_empty() {
+            return;
+        }
+        let (w0, wn) = (wrows.start, wrows.len());
+        let dst = bufs.dwhh.0.add(w0 * h);
+        let dxg = bufs.dxg.0 as *const f32;
+        strided_matmul(
+            wn,
+            h,
+            b,
+            dst,
+            h,
+            false,
+            dxg.add(w0),
+            1,
+            g4 as isize,
+            bufs.s0.0,
+            h as isize,
+            1,
+            Parallelism::None,
+        );
+        if t_len > 1 {
+            strided_matmul(
+                wn,
+                h,
+                (t_len - 1) * b,
+                dst,
+                h,
+                true,
+                dxg.add(b * g4 + w0),
+                1,
+                g4 as isize,
+                bufs.hs.0,
+                h as isize,
+                1,
+                Parallelism::None,
+            );
+        }
+    }
+}
+
+crate::multiversion! {
+    /// The cell update of one lane for a block of units: the gate pre-activations `i`,
+    /// `f`, `g`, `o` in, their activations out; writes h, c and tanh(c).
+    fn forward_cell_row(
+        i: &mut [f32],
+        f: &mut [f32],
+        g: &mut [f32],
+        o: &mut [f32],
+        c_prev: &[f32],
+        h_out: &mut [f32],
+        c_out: &mut [f32],
+        tanh_out: &mut [f32],
+    ) {
+        let n = i.len();
+        let (f, g, o) = (&mut f[..n], &mut g[..n], &mut o[..n]);
+        let (c_prev, h_out, c_out, tanh_out) =
+            (&c_prev[..n], &mut h_out[..n], &mut c_out[..n], &mut tanh_out[..n]);
+        for x in i.iter_mut() {
+            *x = fastmath::sigmoid(*x);
+        }
+        for x in f.iter_mut() {
+            *x = fastmath::sigmoid(*x);
+        }
+        for x in g.iter_mut() {
+            *x = fastmath::tanh(*x);
+        }
+        for x in o.iter_mut() {
+            *x = fastmath::sigmoid(*x);
+        }
+        for j in 0..n {
+            c_out[j] = f[j] * c_prev[j] + i[j] * g[j];
+        }
+        for j in 0..n {
+            tanh_out[j] = fastmath::tanh(c_out[j]);
+        }
+        for j in 0..n {
+            h_out[j] = o[j] * tanh_out[j];
+        }
+    }
+}
+
+crate::multiversion! {
+    /// The backward pass of one lane's cell update for a block of units: `dh_next` and
+    /// `dc` carry the recurrent gradients in (from step t+1), `dc` carries dc_{t-1} out,
+    /// and `di`..`do_` receive the gate pre-activation gradients.
+    fn backward_cell_row(
+        i: &[f32],
+        f: &[f32],
+        g: &[f32],
+        o: &[f32],
+        tanh_c: &[f32],
+        c_prev: &[f32],
+        gh: &[f32],
+        gc: Option<&[f32]>,
+        di: &mut [f32],
+        df: &mut [f32],
+        dg: &mut [f32],
+        do_: &mut [f32],
+        dh_next: &[f32],
+        dc: &mut [f32],
+    ) {
+        let n = i.len();
+        let (f, g, o, tc, cp, gh) = (&f[..n], &g[..n], &o[..n], &tanh_c[..n], &c_prev[..n], &gh[..n]);
+        let (di, df, dg, do_, dhn, dc) =
+            (&mut di[..n], &mut df[..n], &mut dg[..n], &mut do_[..n], &dh_next[..n], &mut dc[..n]);
+        if let Some(gc) = gc {
+            for (d, g) in dc.iter_mut().zip(&gc[..n]) {
+                *d += g;
+            }
+        }
+        for j in 0..n {
+            let dh = gh[j] + dhn[j];
+            let dcj = dc[j] + dh * o[j] * (1.0 - tc[j] * tc[j]);
+            do_[j] = dh * tc[j] * o[j] * (1.0 - o[j]);
+            di[j] = dcj * g[j] * i[j] * (1.0 - i[j]);
+            dg[j] = dcj * i[j] * (1.0 - g[j] * g[j]);
+            df[j] = dcj * cp[j] * f[j] * (1.0 - f[j]);
+            dc[j] = dcj * f[j];
+        }
+    }
+}
+
+/// `W_hh^T` `[H, 4H]` from `W_hh` `[4H, H]`, in tiles so both sides stay in cache.
+fn transpose(whh: &[f32], g4: usize, h: usize) -> Vec<f32> {
+    const TILE: usize = 32;
+    let mut out = vec![0f32; g4 * h];
+    for r0 in (0..g4).step_by(TILE) {
+        for c0 in (0..h).step_by(TILE) {
+            for r in r0..(r0 + TILE).min(g4) {
+                for c in c0..(c0 + TILE).min(h) {
+                    out[c * g4 + r] = whh[r * h + c];
+                }
+            }
+        }
+    }
+    out
 }
 
 impl CustomOp3 for LstmSeq {
@@ -384,45 +475,41 @@ impl CustomOp3 for LstmSeq {
                 t_len * b, g4, g4, h, b, h, l1.shape(), l2.shape(), l3.shape()
             );
         }
-        // W_hh^T as a contiguous [H, 4H] copy: the per-step matmul then reads rows.
-        let mut whh_t = vec![0f32; g4 * h];
-        for r in 0..g4 {
-            for c in 0..h {
-                whh_t[c * g4 + r] = whh[r * h + c];
-            }
-        }
+        // W_hh^T as a contiguous copy: the per-step matmul then reads rows.
+        let whh_t = transpose(whh, g4, h);
         let n = t_len * b * h;
         let mut acts = xg.to_vec(); // the input projection; gates accumulate on top
-                                    // SAFETY: the recurrence writes every row of every step of these three buffers.
-        let (mut hs, mut cs, mut tanh_c) =
-            unsafe { (filled(n, |_| ()), filled(n, |_| ()), filled(n, |_| ())) };
-        let (wp, sp) = (CPtr(whh_t.as_ptr()), CPtr(s0.as_ptr()));
-        let (hp, cp) = (Ptr(hs.as_mut_ptr()), Ptr(cs.as_mut_ptr()));
-        let (ap, tp) = (Ptr(acts.as_mut_ptr()), Ptr(tanh_c.as_mut_ptr()));
-        let ranges = threads::split(b, self.lane_threads);
-        if ranges.len() <= 1 {
-            // SAFETY: buffers sized above; one thread.
-            unsafe { self.forward_lanes(0, b, wp, sp, hp, cp, ap, tp) };
+                                    // In full mode h and c share the output buffer; otherwise c has its own.
+        let mut out = vec![0f32; if self.full { 2 * n } else { n }];
+        let mut cs_own = if self.full { Vec::new() } else { vec![0f32; n] };
+        let mut tanh_c = vec![0f32; n];
+        let (hs_part, cs_part) = if self.full {
+            let (a, c) = out.split_at_mut(n);
+            (a, c)
         } else {
-            std::thread::scope(|s| {
-                for r in ranges {
-                    // SAFETY: each thread writes only rows of its own lanes.
-                    s.spawn(move || unsafe {
-                        self.forward_lanes(r.start, r.end, wp, sp, hp, cp, ap, tp)
-                    });
-                }
-            });
-        }
-        let (out, shape) = if self.full {
-            hs.extend_from_slice(&cs);
-            (hs, Shape::from((2, t_len, b, h)))
-        } else {
-            (hs, Shape::from((t_len, b, h)))
+            (&mut out[..], &mut cs_own[..])
         };
+        let bufs = ForwardBufs {
+            whh_t: SharedRead(whh_t.as_ptr()),
+            s0: SharedRead(s0.as_ptr()),
+            hs: DisjointMut(hs_part.as_mut_ptr()),
+            cs: DisjointMut(cs_part.as_mut_ptr()),
+            tanh_c: DisjointMut(tanh_c.as_mut_ptr()),
+            acts: DisjointMut(acts.as_mut_ptr()),
+        };
+        // SAFETY: the buffers have the sizes checked above and outlive the team, which
+        // `run_team` joins before returning; nothing else touches them meanwhile.
+        threads::run_team(self.team, &|m| unsafe { self.forward_member(m, bufs) });
         if self.save {
+            let cs = if self.full { out[n..].to_vec() } else { cs_own };
             *self.saved.lock().expect("fused lstm cache poisoned") =
                 Some(Saved { acts, tanh_c, cs });
         }
+        let shape = if self.full {
+            Shape::from((2, t_len, b, h))
+        } else {
+            Shape::from((t_len, b, h))
+        };
         Ok((CpuStorage::F32(out), shape))
     }
 
@@ -440,93 +527,32 @@ impl CustomOp3 for LstmSeq {
         let Some(saved) = guard.as_ref() else {
             bail!("fused lstm: backward called on a forward run without gradient")
         };
-        // SAFETY: the backward recurrence writes every row of dxg and ds0; the first dW
-        // matmul overwrites all of dwhh.
-        let (mut dxg, mut ds0, mut dwhh) = unsafe {
-            (
-                filled(t_len * b * g4, |_| ()),
-                filled(2 * b * h, |_| ()),
-                filled(g4 * h, |_| ()),
-            )
-        };
+        let mut dxg = vec![0f32; t_len * b * g4];
+        let mut ds0 = vec![0f32; 2 * b * h];
+        let mut dwhh = vec![0f32; g4 * h];
         let full = self.full;
-        let nthreads = self.threads;
-        let lane_threads = self.lane_threads;
         with_f32(w_hh, |whh| {
             with_f32(state0, |s0| {
                 with_f32(res, |out| {
                     with_f32(grad_res, |gout| {
-                        let wp = CPtr(whh.as_ptr());
-                        let sp = CPtr(s0.as_ptr());
-                        // h is the first [T, B, H] block of the output in both modes
-                        let cp = CPtr(saved.cs.as_ptr());
-                        let ap = CPtr(saved.acts.as_ptr());
-                        let tp = CPtr(saved.tanh_c.as_ptr());
-                        let gp = CPtr(gout.as_ptr());
-                        // SAFETY: in full mode the gradient holds [2, T, B, H].
-                        let gcp = full.then(|| CPtr(unsafe { gout.as_ptr().add(t_len * b * h) }));
-                        let dp = Ptr(dxg.as_mut_ptr());
-                        let dsp = Ptr(ds0.as_mut_ptr());
-                        let ranges = threads::split(b, lane_threads);
-                        if ranges.len() <= 1 {
-                            // SAFETY: buffers sized above; one thread.
-                            unsafe {
-                                self.backward_lanes(0, b, wp, sp, cp, ap, tp, gp, gcp, dp, dsp)
-                            };
-                        } else {
-                            std::thread::scope(|s| {
-                                for r in ranges {
-                                    // SAFETY: each thread writes only rows of its own lanes.
-                                    s.spawn(move || unsafe {
-                                        self.backward_lanes(
-                                            r.start, r.end, wp, sp, cp, ap, tp, gp, gcp, dp, dsp,
-                                        )
-                                    });
-                                }
-                            });
-                        }
-                        // dW_hh = sum_t da_t^T h_{t-1}: [4H, B] x [B, H] for t = 0 (h0), then
-                        // [4H, (T-1)B] x [(T-1)B, H] over the stored hidden states.
-                        let par = if nthreads > 1 {
-                            Parallelism::Rayon(nthreads)
-                        } else {
-                            Parallelism::None
+                        let bufs = BackwardBufs {
+                            whh: SharedRead(whh.as_ptr()),
+                            s0: SharedRead(s0.as_ptr()),
+                            // h is the first [T, B, H] block of the output in both modes
+                            hs: SharedRead(out.as_ptr()),
+                            cs: SharedRead(saved.cs.as_ptr()),
+                            tanh_c: SharedRead(saved.tanh_c.as_ptr()),
+                            acts: SharedRead(saved.acts.as_ptr()),
+                            gh: SharedRead(gout.as_ptr()),
+                            // in full mode the gradient holds [2, T, B, H]
+                            gc: full.then(|| SharedRead(gout[t_len * b * h..].as_ptr())),
+                            dxg: DisjointMut(dxg.as_mut_ptr()),
+                            ds0: DisjointMut(ds0.as_mut_ptr()),
+                            dwhh: DisjointMut(dwhh.as_mut_ptr()),
                         };
-                        // SAFETY: shapes checked in the forward pass; dxg^T is read through strides.
-                        unsafe {
-                            mm(
-                                g4,
-                                h,
-                                b,
-                                dwhh.as_mut_ptr(),
-                                h,
-                                false,
-                                dxg.as_ptr(),
-                                1,
-                                g4 as isize,
-                                s0.as_ptr(),
-                                h as isize,
-                                1,
-                                par,
-                            );
-                            if t_len > 1 {
-                                mm(
-                                    g4,
-                                    h,
-                                    (t_len - 1) * b,
-                                    dwhh.as_mut_ptr(),
-                                    h,
-                                    true,
-                                    dxg.as_ptr().add(b * g4),
-                                    1,
-                                    g4 as isize,
-                                    out.as_ptr(),
-                                    h as isize,
-                                    1,
-                                    par,
-                                );
-                            }
-                        }
+                        // SAFETY: shapes checked in the forward pass; the buffers outlive
+                        // the team, which `run_team` joins before returning.
+                        threads::run_team(self.team, &|m| unsafe { self.backward_member(m, bufs) });
                     })
                 })
             })
@@ -586,7 +612,7 @@ fn run(
     steps: usize,
     grad: bool,
     full: bool,
-) -> crate::Result<(Tensor, std::sync::Arc<Mutex<Option<Saved>>>)> {
+) -> crate::Result<(Tensor, Arc<Mutex<Option<Saved>>>)> {
     let (g4, h) = w_hh.dims2()?;
     if g4 != 4 * h {
         return Err(crate::Error::shape(
@@ -611,12 +637,15 @@ fn run(
             format!("{:?}", xg.dims()),
         ));
     }
+    // Members of a team meet at a barrier every step, so a team larger than the cores
+    // only makes members wait for each other's time slices.
+    let (team, split) = choose_split(b, h, threads::threads().min(threads::cores()));
     let op = LstmSeq {
         steps,
         batch: b,
         hidden: h,
-        threads: threads::threads(),
-        lane_threads: threads::threads().min((b / MIN_LANES_PER_THREAD).max(1)),
+        team,
+        split,
         save: grad,
         full,
         saved: Default::default(),
@@ -688,7 +717,10 @@ mod tests {
             / scale
     }
 
-    fn check_against_autograd(t_len: usize, b: usize, h: usize, threads: usize) {
+    fn check_against_autograd(t_len: usize, b: usize, h: usize, team: usize, split: Split) {
+        let _serial = threads::TEAM_TESTS
+            .lock()
+            .unwrap_or_else(|e| e.into_inner());
         let xg = Var::from_tensor(&rand_tensor(&[t_len * b, 4 * h], 1.5, 1)).unwrap();
         let whh = Var::from_tensor(&rand_tensor(&[4 * h, h], 0.4, 2)).unwrap();
         let s0 = Var::from_tensor(&rand_tensor(&[2, b, h], 0.5, 3)).unwrap();
@@ -698,8 +730,8 @@ mod tests {
             steps: t_len,
             batch: b,
             hidden: h,
-            threads,
-            lane_threads: threads,
+            team,
+            split,
             save: true,
             full: true,
             saved: Default::default(),
@@ -742,12 +774,41 @@ mod tests {
     // Reference: candle's autograd over the same cell built from ops (`lstm_sequence_reference`).
     #[test]
     fn fused_matches_autograd_one_thread() {
-        check_against_autograd(7, 5, 8, 1);
+        check_against_autograd(7, 5, 8, 1, Split::Lanes);
     }
 
     #[test]
     fn fused_matches_autograd_split_batch() {
-        check_against_autograd(6, 5, 16, 3);
+        check_against_autograd(6, 5, 16, 3, Split::Lanes);
+    }
+
+    // Split by hidden units: two members with 16 units each, three members over 40
+    // units (16, 16, 8), and more members than unit blocks (the extra ones only meet
+    // the barriers).
+    #[test]
+    fn fused_matches_autograd_split_units() {
+        check_against_autograd(6, 5, 32, 2, Split::Units);
+        check_against_autograd(5, 3, 40, 3, Split::Units);
+        check_against_autograd(4, 2, 16, 3, Split::Units);
+    }
+
+    // Edge shapes where a buffer left unwritten would show: one step (only the h0 part
+    // of dW_hh), one lane, one unit, and more lane-split members than lanes.
+    #[test]
+    fn fused_matches_autograd_on_edge_shapes() {
+        check_against_autograd(1, 3, 4, 1, Split::Lanes);
+        check_against_autograd(3, 1, 1, 1, Split::Lanes);
+        check_against_autograd(3, 2, 5, 4, Split::Lanes);
+        check_against_autograd(1, 2, 20, 2, Split::Units);
+    }
+
+    #[test]
+    fn the_split_follows_lanes_per_thread() {
+        assert_eq!(choose_split(32, 128, 1), (1, Split::Lanes));
+        assert_eq!(choose_split(32, 128, 2), (2, Split::Units));
+        assert_eq!(choose_split(128, 128, 2), (2, Split::Lanes));
+        assert_eq!(choose_split(32, 8, 2), (1, Split::Lanes));
+        assert_eq!(choose_split(32, 40, 8), (3, Split::Units));
     }
 
     // The learner's hidden-only path against candle autograd of the op-built cell.
@@ -802,8 +863,15 @@ mod tests {
     /// and split over two.
     #[test]
     fn no_grad_pass_equals_the_reference_over_many_steps() {
-        for (b, threads) in [(5, 1), (6, 2)] {
-            let (t_len, h) = (9, 7);
+        let _serial = threads::TEAM_TESTS
+            .lock()
+            .unwrap_or_else(|e| e.into_inner());
+        for (b, threads, split) in [
+            (5, 1, Split::Lanes),
+            (6, 2, Split::Lanes),
+            (6, 2, Split::Units),
+        ] {
+            let (t_len, h) = (9, 20);
             let xg = rand_tensor(&[t_len * b, 4 * h], 1.5, 11);
             let whh = rand_tensor(&[4 * h, h], 0.4, 12);
             let s0 = rand_tensor(&[2, b, h], 0.5, 13);
@@ -811,8 +879,8 @@ mod tests {
                 steps: t_len,
                 batch: b,
                 hidden: h,
-                threads,
-                lane_threads: threads,
+                team: threads,
+                split,
                 save: false,
                 full: true,
                 saved: Default::default(),
@@ -820,7 +888,7 @@ mod tests {
             let fused = xg.apply_op3_no_bwd(&whh, &s0, &op).unwrap();
             let refd = lstm_sequence_reference(&xg, &whh, &s0, t_len).unwrap();
             let e = rel_err(&fused, &refd);
-            assert!(e < 1e-5, "b {b}, threads {threads}: {e}");
+            assert!(e < 1e-5, "b {b}, threads {threads}, {split:?}: {e}");
             assert!(
                 op.saved.lock().unwrap().is_none(),
                 "nothing kept without gradient"

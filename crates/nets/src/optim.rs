@@ -13,8 +13,8 @@ use candle_core::backprop::GradStore;
 use candle_core::{bail, CpuStorage, InplaceOp1, Layout};
 
 use crate::error::{Error, Result};
-use crate::lstm::with_f32;
 use crate::network::Network;
+use crate::raw::with_f32;
 
 /// What one optimizer step did.
 #[derive(Debug, Clone, Copy, PartialEq)]

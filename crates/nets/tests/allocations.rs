@@ -41,7 +41,12 @@ static GLOBAL: Counting = Counting;
 
 fn count(iters: usize, with_target: bool) -> (u64, u64) {
     let (a0, b0) = (ALLOCS.load(Ordering::SeqCst), BYTES.load(Ordering::SeqCst));
-    mnemon_nets::bench::learner(8, 32, with_target, iters).expect("learner step runs");
+    let size = mnemon_nets::bench::LearnerSize {
+        batch: 8,
+        hidden: 32,
+        ..Default::default()
+    };
+    mnemon_nets::bench::learner(size, with_target, iters).expect("learner step runs");
     (
         ALLOCS.load(Ordering::SeqCst) - a0,
         BYTES.load(Ordering::SeqCst) - b0,

@@ -1,16 +1,20 @@
 //! The fused LSTM against PyTorch's `torch.nn.LSTM` (gate order i, f, g, o): forward
 //! outputs and every gradient on fixed weights and inputs.
 //!
-//! Source of the expected values: PyTorch, via `tests/reference/lstm_fixture.json`, made by
-//! `tests/reference/make_lstm_fixture.py` (float64 math on f32-representable inputs).
+//! Source of the expected values: PyTorch, via `tests/reference/lstm_fixture.json` and
+//! `lstm_fixture_wide.json` (40 hidden units, enough for the op to split them over
+//! threads), made by `tests/reference/make_lstm_fixture.py` (float64 math on
+//! f32-representable inputs). Each fixture is checked on one thread and split over two
+//! and three (the op uses no more threads than the machine has cores; the unit tests in
+//! `lstm.rs` run teams of three directly).
 
 use candle_core::{Device, Tensor, Var};
 use mnemon_nets::lstm::lstm_sequence;
 
-fn fixture() -> serde_json::Value {
-    let path = concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/../../tests/reference/lstm_fixture.json"
+fn fixture(name: &str) -> serde_json::Value {
+    let path = format!(
+        "{}/../../tests/reference/{name}",
+        env!("CARGO_MANIFEST_DIR")
     );
     serde_json::from_str(&std::fs::read_to_string(path).expect("fixture present"))
         .expect("fixture is JSON")
@@ -26,6 +30,7 @@ fn floats(f: &serde_json::Value, key: &str) -> Vec<f32> {
 }
 
 fn assert_close(got: &[f32], want: &[f32], what: &str) {
+    let what = format!("{what} ({} threads)", mnemon_nets::threads::threads());
     assert_eq!(got.len(), want.len(), "{what}: length");
     let scale = want.iter().fold(1e-6f32, |m, x| m.max(x.abs()));
     let err = got
@@ -42,9 +47,20 @@ fn to_vec(t: &Tensor) -> Vec<f32> {
     t.flatten_all().unwrap().to_vec1::<f32>().unwrap()
 }
 
+// One test function: the thread count is process-wide.
 #[test]
 fn fused_lstm_matches_pytorch_nn_lstm() {
-    let f = fixture();
+    for name in ["lstm_fixture.json", "lstm_fixture_wide.json"] {
+        for threads in [1, 2, 3] {
+            mnemon_nets::threads::set_threads(threads);
+            check(name);
+        }
+    }
+    mnemon_nets::threads::set_threads(1);
+}
+
+fn check(name: &str) {
+    let f = fixture(name);
     let n = |k: &str| f[k].as_u64().unwrap() as usize;
     let (t, b, i, h) = (n("T"), n("B"), n("I"), n("H"));
     let dev = Device::Cpu;
