@@ -1,16 +1,21 @@
-//! The exported ONNX graph, run by an independent runtime (tract, a pure-Rust ONNX
-//! implementation from crates.io), against mnemon's own acting path
-//! (`mnemon_nets::ActorNet::step`) over whole episodes of real tasks: `q` and
-//! `state_out` must agree to 1e-4 at every step, with each side carrying its own state.
-//! Each comparison also leaves the model and a trace of the episodes (inputs, and
-//! mnemon's `q` and state after every step) in `<target>/tmp/onnx-traces/<name>/`, where
-//! `tests/reference/onnx_check.py` replays them with Python onnxruntime.
+//! The exported ONNX graph against mnemon's own acting path
+//! (`mnemon_nets::ActorNet::step`) over whole episodes of real tasks, in independent
+//! runtimes: `q` and `state_out` must agree to 1e-4 at every step, with each side
+//! carrying its own state.
+//!
+//! Every test leaves the model and a trace of its episodes (inputs, and mnemon's `q`
+//! and state after every step) in `<target>/tmp/onnx-traces/<name>/`, where
+//! `tests/reference/onnx_check.py` replays them with Python onnxruntime (`.ci/run` does
+//! this after the tests). With `--features tract-check` the same episodes also run here
+//! in tract, a pure-Rust ONNX implementation from crates.io; it is a feature because
+//! tract roughly doubles a clean release build on two cores.
 
 use mnemon_envs::Lanes;
 use mnemon_export::{onnx_bytes, Policy, PolicySource};
 use mnemon_nets::{ActorNet, Network, Params};
 use mnemon_spec::Spec;
 use rand::{Rng, SeedableRng};
+#[cfg(feature = "tract-check")]
 use tract_onnx::prelude::*;
 
 const TOLERANCE: f32 = 1e-4;
@@ -46,12 +51,14 @@ fn random_source(spec: &Spec, seed: u64) -> PolicySource {
     PolicySource::from_parts(spec.clone(), params, 0).unwrap()
 }
 
+#[cfg(feature = "tract-check")]
 struct Onnx {
     plan: std::sync::Arc<TypedSimplePlan>,
     feeds_previous: bool,
     state_len: usize,
 }
 
+#[cfg(feature = "tract-check")]
 fn load_onnx(source: &PolicySource, batch: usize) -> Onnx {
     let bytes = onnx_bytes(source).unwrap();
     let model = tract_onnx::onnx().model_for_read(&mut &bytes[..]).unwrap();
@@ -69,6 +76,7 @@ fn load_onnx(source: &PolicySource, batch: usize) -> Onnx {
     }
 }
 
+#[cfg(feature = "tract-check")]
 impl Onnx {
     /// One step; returns (q, state_out).
     fn step(
@@ -116,6 +124,7 @@ impl Onnx {
     }
 }
 
+#[cfg(feature = "tract-check")]
 fn max_diff(a: &[f32], b: &[f32]) -> f32 {
     assert_eq!(a.len(), b.len());
     a.iter()
@@ -138,6 +147,7 @@ fn compare(
     let source = random_source(spec, seed);
     let mut trace = Vec::new();
     let mut reset: Vec<usize> = Vec::new();
+    #[cfg(feature = "tract-check")]
     let onnx = load_onnx(&source, lanes);
     let shape = source.face.net_shape();
     let obs_shape: Vec<usize> = match shape.obs {
@@ -150,22 +160,26 @@ fn compare(
     };
     let mut net = ActorNet::from_params(&spec.agent, shape, &source.params).unwrap();
     let sl = net.state_len();
+    #[cfg(feature = "tract-check")]
     assert_eq!(sl, onnx.state_len);
     let a = shape.actions;
     let mut env = Lanes::new(&spec.task, lanes, seed).unwrap();
     let mut rng = rand::rngs::StdRng::seed_from_u64(seed);
     let mut state_m = vec![0f32; lanes * sl];
+    #[cfg(feature = "tract-check")]
     let mut state_o = vec![0f32; lanes * sl];
     let mut prev_action = vec![usize::MAX; lanes];
     let mut prev_reward = vec![0f32; lanes];
     let mut q_m = vec![0f32; lanes * a];
     let mut ended = vec![0usize; lanes];
+    #[allow(unused_mut)] // only the tract comparison updates the differences
     let (mut dq, mut ds, mut steps) = (0f32, 0f32, 0usize);
     while ended.iter().any(|&e| e < episodes_per_lane) {
         let pa: Vec<i64> = prev_action
             .iter()
             .map(|&p| if p == usize::MAX { -1 } else { p as i64 })
             .collect();
+        #[cfg(feature = "tract-check")]
         let (q_o, s_o) = onnx.step(&obs_shape, env.obs(), &pa, &prev_reward, &state_o);
         net.step(
             env.obs(),
@@ -183,9 +197,12 @@ fn compare(
             "q": q_m,
             "state": state_m,
         }));
-        dq = dq.max(max_diff(&q_m, &q_o));
-        ds = ds.max(max_diff(&state_m, &s_o));
-        state_o = s_o;
+        #[cfg(feature = "tract-check")]
+        {
+            dq = dq.max(max_diff(&q_m, &q_o));
+            ds = ds.max(max_diff(&state_m, &s_o));
+            state_o = s_o;
+        }
         steps += 1;
         let chosen: Vec<usize> = (0..lanes)
             .map(|l| {
@@ -203,6 +220,7 @@ fn compare(
                 ended[l] += 1;
                 reset.push(l);
                 state_m[l * sl..(l + 1) * sl].fill(0.0);
+                #[cfg(feature = "tract-check")]
                 state_o[l * sl..(l + 1) * sl].fill(0.0);
                 prev_action[l] = usize::MAX;
                 prev_reward[l] = 0.0;
@@ -246,7 +264,11 @@ fn write_trace(
 
 fn check(name: &str, spec: &Spec, seed: u64) {
     let (dq, ds, steps) = compare(name, spec, 3, 4, seed);
-    eprintln!("{name}: {steps} steps x 3 lanes, max |dq| {dq:.2e}, max |dstate| {ds:.2e}");
+    if cfg!(feature = "tract-check") {
+        eprintln!("{name}: {steps} steps x 3 lanes, tract max |dq| {dq:.2e}, max |dstate| {ds:.2e}");
+    } else {
+        eprintln!("{name}: {steps} steps x 3 lanes traced for onnx_check.py (tract: --features tract-check)");
+    }
     assert!(dq <= TOLERANCE, "{name}: q differs by {dq}");
     assert!(ds <= TOLERANCE, "{name}: state differs by {ds}");
 }
@@ -305,6 +327,7 @@ fn conv_torsos_match_tract() {
 }
 
 /// The embedding API plays the same episode as the ONNX graph: same actions, same q.
+#[cfg(feature = "tract-check")]
 #[test]
 fn policy_api_matches_tract() {
     let s =
