@@ -142,6 +142,9 @@ pub fn run_compare(args: CompareArgs) -> Result<(), Failure> {
 fn plan(spec_path: &Path, args: &CompareArgs) -> Result<Vec<Planned>, Failure> {
     let resolved = mnemon_spec::load(spec_path, &args.sets)
         .map_err(|e| Failure::BadInput(e.render(crate::color())))?;
+    for w in &resolved.warnings {
+        eprintln!("{w}");
+    }
     let mut axes = Vec::new();
     for v in &args.vary {
         axes.push(parse_axis(v)?);

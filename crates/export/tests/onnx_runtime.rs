@@ -265,7 +265,9 @@ fn write_trace(
 fn check(name: &str, spec: &Spec, seed: u64) {
     let (dq, ds, steps) = compare(name, spec, 3, 4, seed);
     if cfg!(feature = "tract-check") {
-        eprintln!("{name}: {steps} steps x 3 lanes, tract max |dq| {dq:.2e}, max |dstate| {ds:.2e}");
+        eprintln!(
+            "{name}: {steps} steps x 3 lanes, tract max |dq| {dq:.2e}, max |dstate| {ds:.2e}"
+        );
     } else {
         eprintln!("{name}: {steps} steps x 3 lanes traced for onnx_check.py (tract: --features tract-check)");
     }
