@@ -5,24 +5,10 @@
 #[derive(Debug, thiserror::Error)]
 #[non_exhaustive]
 pub enum TaskError {
-    /// `kind` names no registered task.
-    #[error("unknown task kind \"{kind}\"; known kinds: {known}")]
-    UnknownKind {
-        /// What was asked for.
-        kind: String,
-        /// Comma-separated list of registered kinds.
-        known: String,
-    },
-    /// A task setting is missing, of the wrong type or out of range.
-    #[error("task {kind}: setting \"{key}\": {problem}")]
-    Setting {
-        /// Task kind.
-        kind: String,
-        /// Setting name.
-        key: String,
-        /// What is wrong and what was expected.
-        problem: String,
-    },
+    /// A `[task]` section the task table (`mnemon_spec::tasks`) refuses: an unknown
+    /// kind, or a setting that is unknown, missing, of the wrong type or out of range.
+    #[error(transparent)]
+    Settings(#[from] mnemon_spec::tasks::SettingError),
     /// An action index outside the action space.
     #[error("task {kind}: action {action} is out of range (expected 0..{count})")]
     Action {

@@ -10,17 +10,6 @@ use mnemon_spec::{TaskSpec, Value};
 
 use crate::{cartpole, fog_grid, process, recall, tiger, tmaze, Task, TaskError};
 
-impl From<SettingError> for TaskError {
-    fn from(e: SettingError) -> Self {
-        match e {
-            SettingError::UnknownKind { kind, known } => TaskError::UnknownKind { kind, known },
-            SettingError::Setting { kind, key, problem } => {
-                TaskError::Setting { kind, key, problem }
-            }
-        }
-    }
-}
-
 /// Build one instance of the task `spec` describes, after checking its settings
 /// against the task table and filling defaults. For `kind = "process"` this starts
 /// the outside program and completes its handshake.
@@ -35,23 +24,25 @@ pub fn make(spec: &TaskSpec) -> Result<Box<dyn Task>, TaskError> {
         "fog-grid" => Box::new(fog_grid::FogGrid::from_spec(&spec)?),
         "process" => Box::new(process::ProcessTask::from_spec(&spec)?),
         other => {
-            return Err(TaskError::Setting {
+            return Err(SettingError::Setting {
                 kind: other.to_string(),
                 key: "kind".into(),
                 problem: "internal error: the task table lists this kind but envs cannot build it"
                     .into(),
-            })
+            }
+            .into())
         }
     })
 }
 
 /// A setting that `tasks::complete` guarantees; its absence is an internal error.
 fn missing(spec: &TaskSpec, key: &str, what: &str) -> TaskError {
-    TaskError::Setting {
+    SettingError::Setting {
         kind: spec.kind.clone(),
         key: key.into(),
         problem: format!("internal error: missing or not {what} after the task table's check"),
     }
+    .into()
 }
 
 /// An integer setting (range already checked against the task table).

@@ -243,10 +243,9 @@ pub fn task_spec(target: &str, sets: &[String]) -> Result<TaskSpec, Failure> {
 /// programs that misbehave are the user's input (2); anything else is internal (1).
 fn task_failure(e: TaskError) -> Failure {
     match e {
-        TaskError::UnknownKind { .. }
-        | TaskError::Setting { .. }
-        | TaskError::Map { .. }
-        | TaskError::Process { .. } => Failure::BadInput(format!("mnemon tasks: {e}")),
+        TaskError::Settings(_) | TaskError::Map { .. } | TaskError::Process { .. } => {
+            Failure::BadInput(format!("mnemon tasks: {e}"))
+        }
         other => Failure::Internal(anyhow::anyhow!("{other}")),
     }
 }
