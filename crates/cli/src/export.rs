@@ -23,16 +23,7 @@ pub struct ExportArgs {
 
 /// Runs `mnemon export`.
 pub fn run_export(args: ExportArgs) -> Result<(), Failure> {
-    let ckpt = if args.target.is_dir() {
-        mnemon_engine::rundir::latest_checkpoint(&args.target).ok_or_else(|| {
-            Failure::BadInput(format!(
-                "mnemon export: {}: no checkpoint in this run folder (expected checkpoints/step-N.safetensors)",
-                args.target.display()
-            ))
-        })?
-    } else {
-        args.target.clone()
-    };
+    let ckpt = crate::train::checkpoint_of(&args.target, "mnemon export")?;
     let source =
         PolicySource::load(&ckpt).map_err(|e| Failure::BadInput(format!("mnemon export: {e}")))?;
     let bytes = export_onnx(&source, &args.out).map_err(|e| {

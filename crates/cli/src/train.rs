@@ -262,17 +262,22 @@ pub(crate) fn engine_failure(e: mnemon_engine::Error) -> Failure {
     }
 }
 
+/// The checkpoint a CHECKPOINT_OR_RUN_DIR argument names: the file itself, or the latest
+/// checkpoint of a run folder (`command` prefixes the error).
+pub(crate) fn checkpoint_of(target: &Path, command: &str) -> Result<PathBuf, Failure> {
+    if !target.is_dir() {
+        return Ok(target.to_path_buf());
+    }
+    mnemon_engine::rundir::latest_checkpoint(target).ok_or_else(|| {
+        Failure::BadInput(format!(
+            "{command}: {}: no checkpoint in this run folder (expected checkpoints/step-N.safetensors)",
+            target.display()
+        ))
+    })
+}
+
 pub fn run_eval(args: EvalArgs) -> Result<(), Failure> {
-    let ckpt = if args.target.is_dir() {
-        mnemon_engine::rundir::latest_checkpoint(&args.target).ok_or_else(|| {
-            Failure::BadInput(format!(
-                "{}: no checkpoint in this run folder",
-                args.target.display()
-            ))
-        })?
-    } else {
-        args.target.clone()
-    };
+    let ckpt = checkpoint_of(&args.target, "mnemon eval")?;
     let loaded = mnemon_engine::learner::load_params(&ckpt).map_err(engine_failure)?;
     let (spec, _) = load_spec_text(&loaded.spec_toml, &ckpt.display().to_string(), &args.sets)?;
     let setup = EvalSetup {
