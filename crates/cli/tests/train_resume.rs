@@ -1,9 +1,11 @@
-//! End to end through the binary: train, kill the process with SIGKILL mid-run, resume,
-//! and check that counters continue, the metrics stay valid JSON lines and every
-//! checkpoint loads.
+//! End to end through the binary: stopping a run and resuming it. A run killed with
+//! SIGKILL mid-run resumes from its last checkpoint (counters continue, the metrics stay
+//! valid JSON lines, every checkpoint loads); Ctrl-C (SIGINT) stops after the current
+//! round with a final checkpoint and an end record, exits 130 (README, "Exit codes") and
+//! resumes; a run that used its budget is refused until the budget grows.
 
-use std::path::Path;
-use std::process::{Command, Stdio};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
 fn mnemon() -> Command {
@@ -17,7 +19,7 @@ fn spec_path() -> String {
         .to_string()
 }
 
-fn checkpoints(run: &Path) -> Vec<std::path::PathBuf> {
+fn checkpoints(run: &Path) -> Vec<PathBuf> {
     let mut v: Vec<_> = std::fs::read_dir(run.join("checkpoints"))
         .map(|d| d.filter_map(|e| e.ok()).map(|e| e.path()).collect())
         .unwrap_or_default();
@@ -26,21 +28,37 @@ fn checkpoints(run: &Path) -> Vec<std::path::PathBuf> {
     v
 }
 
-#[test]
-fn a_killed_run_resumes_from_its_last_checkpoint() {
-    let tmp = tempfile::tempdir().unwrap();
-    let out = tmp.path().display().to_string();
+fn steps_of(ckpt: &Path) -> u64 {
+    ckpt.file_stem()
+        .unwrap()
+        .to_string_lossy()
+        .trim_start_matches("step-")
+        .parse()
+        .unwrap()
+}
+
+fn records(run: &Path) -> Vec<serde_json::Value> {
+    std::fs::read_to_string(run.join("metrics.jsonl"))
+        .unwrap()
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect()
+}
+
+/// Starts a long run (budget 1M, a checkpoint every 2k env steps) under `out` and waits
+/// until it has written `n` checkpoints; returns the process and its run folder.
+fn long_run_with_checkpoints(out: &Path, n: usize) -> (Child, PathBuf) {
     let mut child = mnemon()
         .args(["train", &spec_path(), "--quiet"])
-        .args(["--set", &format!("run.out=\"{out}\"")])
+        .args(["--set", &format!("run.out=\"{}\"", out.display())])
         .args(["--set", "run.checkpoint_every=2k", "--set", "run.budget=1M"])
         .stdout(Stdio::null())
         .stderr(Stdio::piped())
         .spawn()
         .unwrap();
-    let run = tmp.path().join("tmaze-none").join("seed1-001");
+    let run = out.join("tmaze-none").join("seed1-001");
     let started = Instant::now();
-    while checkpoints(&run).len() < 3 {
+    while checkpoints(&run).len() < n {
         assert!(
             started.elapsed() < Duration::from_secs(60),
             "no checkpoints appeared"
@@ -58,20 +76,36 @@ fn a_killed_run_resumes_from_its_last_checkpoint() {
         }
         std::thread::sleep(Duration::from_millis(20));
     }
+    (child, run)
+}
+
+/// Trains to the end of a short budget (`--set run.budget=...` in `budget`) under `out`
+/// and returns the run folder.
+fn finished_run(out: &Path, budget: &str) -> PathBuf {
+    let done = mnemon()
+        .args(["train", &spec_path(), "--quiet"])
+        .args(["--set", &format!("run.out=\"{}\"", out.display())])
+        .args(["--set", budget, "--set", "learn.warmup=500"])
+        .output()
+        .unwrap();
+    assert!(
+        done.status.success(),
+        "{}",
+        String::from_utf8_lossy(&done.stderr)
+    );
+    out.join("tmaze-none/seed1-001")
+}
+
+#[test]
+fn a_killed_run_resumes_from_its_last_checkpoint() {
+    let tmp = tempfile::tempdir().unwrap();
+    let (mut child, run) = long_run_with_checkpoints(tmp.path(), 3);
     // SIGKILL at an arbitrary moment after the third checkpoint.
     std::thread::sleep(Duration::from_millis(137));
     child.kill().unwrap();
     child.wait().unwrap();
     let before = checkpoints(&run);
-    let last_steps: u64 = before
-        .last()
-        .unwrap()
-        .file_stem()
-        .unwrap()
-        .to_string_lossy()
-        .trim_start_matches("step-")
-        .parse()
-        .unwrap();
+    let last_steps = steps_of(before.last().unwrap());
 
     let status = mnemon()
         .args(["train", "--resume", run.to_str().unwrap(), "--quiet"])
@@ -112,19 +146,7 @@ fn a_killed_run_resumes_from_its_last_checkpoint() {
 #[test]
 fn resuming_a_run_that_used_its_budget_says_how_to_extend_it() {
     let tmp = tempfile::tempdir().unwrap();
-    let out = tmp.path().display().to_string();
-    let done = mnemon()
-        .args(["train", &spec_path(), "--quiet"])
-        .args(["--set", &format!("run.out=\"{out}\"")])
-        .args(["--set", "run.budget=3000", "--set", "learn.warmup=500"])
-        .output()
-        .unwrap();
-    assert!(
-        done.status.success(),
-        "{}",
-        String::from_utf8_lossy(&done.stderr)
-    );
-    let run = tmp.path().join("tmaze-none/seed1-001");
+    let run = finished_run(tmp.path(), "run.budget=3000");
     let again = mnemon()
         .args(["train", "--quiet", "--resume"])
         .arg(&run)
@@ -152,19 +174,7 @@ fn resuming_a_run_that_used_its_budget_says_how_to_extend_it() {
 #[test]
 fn resuming_a_run_that_used_its_time_budget_runs_nothing() {
     let tmp = tempfile::tempdir().unwrap();
-    let out = tmp.path().display().to_string();
-    let done = mnemon()
-        .args(["train", &spec_path(), "--quiet"])
-        .args(["--set", &format!("run.out=\"{out}\"")])
-        .args(["--set", "run.budget=\"1s\"", "--set", "learn.warmup=500"])
-        .output()
-        .unwrap();
-    assert!(
-        done.status.success(),
-        "{}",
-        String::from_utf8_lossy(&done.stderr)
-    );
-    let run = tmp.path().join("tmaze-none/seed1-001");
+    let run = finished_run(tmp.path(), "run.budget=\"1s\"");
     let metrics = std::fs::read_to_string(run.join("metrics.jsonl")).unwrap();
     let again = mnemon()
         .args(["train", "--quiet", "--resume"])
@@ -181,5 +191,53 @@ fn resuming_a_run_that_used_its_time_budget_runs_nothing() {
         std::fs::read_to_string(run.join("metrics.jsonl")).unwrap(),
         metrics,
         "no round ran"
+    );
+}
+
+#[test]
+fn ctrl_c_saves_a_final_checkpoint_exits_130_and_resumes() {
+    let tmp = tempfile::tempdir().unwrap();
+    let (child, run) = long_run_with_checkpoints(tmp.path(), 1);
+    let pid = i32::try_from(child.id()).unwrap();
+    // SAFETY: kill(2) on our own child's pid; no memory is involved.
+    assert_eq!(unsafe { libc::kill(pid, libc::SIGINT) }, 0);
+    let output = child.wait_with_output().unwrap();
+    let stderr = String::from_utf8_lossy(&output.stderr);
+    assert_eq!(output.status.code(), Some(130), "{stderr}");
+
+    // The last record is the end record of an interrupt, at the final checkpoint's step.
+    let recs = records(&run);
+    let end = recs.last().unwrap();
+    assert_eq!(end["kind"], "end", "{end}");
+    assert_eq!(end["stopped_by"], "interrupt");
+    let last = checkpoints(&run).pop().unwrap();
+    let stopped_at = end["env_steps"].as_u64().unwrap();
+    assert_eq!(steps_of(&last), stopped_at, "final checkpoint at the stop");
+
+    // --resume goes on from the interrupt to a budget above it and exits 0.
+    let budget = stopped_at + 3000;
+    let resumed = mnemon()
+        .args(["train", "--quiet", "--resume"])
+        .arg(&run)
+        .args(["--set", &format!("run.budget={budget}")])
+        .output()
+        .unwrap();
+    assert!(
+        resumed.status.success(),
+        "{}",
+        String::from_utf8_lossy(&resumed.stderr)
+    );
+    let recs = records(&run);
+    let end = recs.last().unwrap();
+    assert_eq!(end["stopped_by"], "budget", "{end}");
+    assert!(end["env_steps"].as_u64().unwrap() >= budget);
+    let first_after = recs
+        .iter()
+        .position(|r| r["kind"] == "end")
+        .map(|i| &recs[i + 1])
+        .unwrap();
+    assert!(
+        first_after["env_steps"].as_u64().unwrap() > stopped_at,
+        "counters continue from the interrupt: {first_after}"
     );
 }
